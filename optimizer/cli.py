@@ -1,0 +1,191 @@
+"""The `dieplan` command line: a thin shell over the library.
+
+Commands parse options, call the library and hand results to report.py. A ProblemError
+becomes one line on stderr and exit code 2; nothing is written half-way.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.console import Console
+
+from optimizer import __version__
+from optimizer.designs import evaluate_design
+from optimizer.outputs import copy_writer, text_writer, write_run_folder
+from optimizer.evaluator import Evaluator
+from optimizer.problem import ProblemError, load_problem
+from optimizer import report
+
+app = typer.Typer(
+    help="Plan dies, processes, packaging and yield targets for the most profit. "
+    + report.CAUTION,
+    no_args_is_help=True,
+    add_completion=False,
+    context_settings={"help_option_names": ["-h", "--help"]},
+)
+
+ProblemPath = Annotated[Path, typer.Argument(help="Problem file (TOML).", show_default=False)]
+
+
+def _version(value: bool) -> None:
+    if value:
+        typer.echo(f"dieplan {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def main(
+    version: Annotated[
+        bool, typer.Option("--version", callback=_version, is_eager=True, help="Show the version.")
+    ] = False,
+) -> None:
+    """dieplan command line."""
+
+
+def fail(error: ProblemError) -> None:
+    print(f"dieplan: {error.line()}", file=sys.stderr)
+    raise typer.Exit(code=2)
+
+
+def _console() -> Console:
+    return Console(highlight=False)
+
+
+@app.command()
+def check(problem_path: ProblemPath) -> None:
+    """Validate a problem file and show what was understood, in base units."""
+    try:
+        problem = load_problem(problem_path)
+        evaluator = Evaluator(problem)
+        for design in problem.design:
+            evaluate_design(evaluator, design, str(problem_path))
+    except ProblemError as error:
+        fail(error)
+    console = _console()
+    console.print(report.problem_summary(problem, str(problem_path)))
+    console.print(f"ok: {problem_path} is valid.")
+
+
+@app.command()
+def evaluate(
+    problem_path: ProblemPath,
+    design: Annotated[
+        str | None, typer.Option("--design", "-d", help="Name of one explicit design.")
+    ] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="Print one JSON object.")] = False,
+) -> None:
+    """Price the explicit designs of a problem file: cost per good unit, yields, profit."""
+    try:
+        problem = load_problem(problem_path)
+        if not problem.design:
+            raise ProblemError(
+                str(problem_path), "design", "the file has no [[design]] to evaluate; add one"
+            )
+        if design is not None:
+            names = [d.name for d in problem.design]
+            if design not in names:
+                raise ProblemError(
+                    str(problem_path), "design", f"no design named '{design}'; use one of {names}"
+                )
+            chosen = [problem.design_named(design)]
+        else:
+            chosen = list(problem.design)
+        evaluator = Evaluator(problem)
+        results = [evaluate_design(evaluator, d, str(problem_path)) for d in chosen]
+    except ProblemError as error:
+        fail(error)
+    if as_json:
+        payload = results[0].to_dict() if len(results) == 1 else {
+            "problem": problem.title,
+            "designs": [r.to_dict() for r in results],
+        }
+        typer.echo(json.dumps(payload, indent=2, allow_nan=True))
+        return
+    console = _console()
+    for result in results:
+        console.print(report.design_breakdown(result))
+        console.print()
+    if len(results) > 1:
+        console.print(report.designs_overview(results))
+    console.print(report.CAUTION, style="dim")
+
+
+@app.command()
+def solve(
+    problem_path: ProblemPath,
+    top: Annotated[int, typer.Option("--top", "-k", min=1, help="How many ranked designs.")] = 3,
+    method: Annotated[
+        str, typer.Option("--method", help="milp (proven, default) or exhaustive (small problems).")
+    ] = "milp",
+    time_limit: Annotated[
+        float | None,
+        typer.Option("--time-limit", min=0.0, help="Seconds; returns the best found and its gap."),
+    ] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="Print the solution as JSON.")] = False,
+    results_dir: Annotated[
+        Path, typer.Option("--results", help="Folder for the run folder.")
+    ] = Path("results"),
+    write: Annotated[bool, typer.Option("--write/--no-write", help="Write a run folder.")] = True,
+) -> None:
+    """Find the most profitable design: partition, process per die, packaging, redundancy."""
+    from optimizer.solver import METHODS
+    from optimizer.solver import solve as run_solver
+
+    if method not in METHODS:
+        fail(ProblemError(str(problem_path), "--method", f"unknown method '{method}'; use one of {list(METHODS)}"))
+    try:
+        problem = load_problem(problem_path)
+        solution = run_solver(problem, top=top, method=method, time_limit=time_limit,
+                              source=str(problem_path))
+    except ProblemError as error:
+        fail(error)
+    payload = solution.to_dict()
+    folder = None
+    if write:
+        folder = write_run_folder(
+            results_dir,
+            "solve",
+            problem_path.stem,
+            {
+                "solution.json": text_writer(json.dumps(payload, indent=2)),
+                "ranked.csv": text_writer(_ranked_csv(solution)),
+                "solver.log": text_writer("\n".join(solution.log) + "\n"),
+                "problem.toml": copy_writer(problem_path),
+            },
+        )
+    if as_json:
+        if folder is not None:
+            payload["run_folder"] = str(folder)
+        typer.echo(json.dumps(payload, indent=2))
+        return
+    console = _console()
+    console.print(report.solution_view(solution))
+    if folder is not None:
+        console.print(f"wrote {folder}")
+    console.print(report.CAUTION, style="dim")
+
+
+def _ranked_csv(solution) -> str:
+    import pandas as pd
+
+    rows = []
+    for rank, d in enumerate(solution.designs, start=1):
+        rows.append({
+            "rank": rank,
+            "design": report.short_design(d),
+            "packaging": d.packaging,
+            "n_dies": d.n_dies,
+            "cost_per_good_unit": d.cost_per_good_unit,
+            "manufacturing_cost_per_good_unit": d.manufacturing_cost_per_good_unit,
+            "package_yield": d.package_yield,
+            "nre": d.nre,
+            "profit": d.profit,
+            "margin": d.margin,
+            **{f"cost_{k}": v for k, v in d.breakdown.items()},
+        })
+    return pd.DataFrame(rows).to_csv(index=False)

@@ -1,0 +1,233 @@
+"""Complete designs: a few die designs with copies on one packaging option.
+
+Turns an explicit design (from the problem file, or chosen by the solver) into the
+evaluator's arrays, prices it and returns one named, JSON-ready result. Physical
+impossibilities (a die over the reticle field, an interposer over its limit) are errors;
+soft limits from the constraints section are listed as violations.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from optimizer.evaluator import COST_COMPONENTS, DieBatch, Evaluator
+from optimizer.problem import Design, ProblemError
+
+
+@dataclass(frozen=True)
+class DieSpec:
+    """One die design: process, block instances, spares and repairs per block (by name)."""
+
+    process: str
+    blocks: dict[str, int]
+    spares: dict[str, int]
+    repair: dict[str, int]
+    copies: int = 1
+    name: str = ""
+
+    def key(self) -> tuple:
+        return (
+            self.process,
+            tuple(sorted(self.blocks.items())),
+            tuple(sorted((k, v) for k, v in self.spares.items() if v)),
+            tuple(sorted((k, v) for k, v in self.repair.items() if v)),
+        )
+
+
+@dataclass(frozen=True)
+class DieResult:
+    name: str
+    process: str
+    copies: int
+    blocks: dict[str, int]
+    spares: dict[str, int]
+    repair: dict[str, int]
+    area_mm2: float
+    width_mm: float
+    height_mm: float
+    interface_area_mm2: float
+    gross_dies_per_wafer: float
+    hard_yield: float
+    soft_yield: float
+    die_yield: float
+    pass_fraction: float
+    defect_level: float
+    raw_cost: float
+    sort_cost: float
+    cost_per_passed_die: float
+    nre: float
+
+
+@dataclass(frozen=True)
+class DesignResult:
+    """The full breakdown of one design, every figure from the evaluator."""
+
+    design: str
+    packaging: str
+    packaging_kind: str
+    currency: str
+    dies: list[DieResult]
+    n_dies: int
+    total_die_area_mm2: float
+    carrier_area_mm2: float
+    package_yield: float
+    manufacturing_cost_per_good_unit: float
+    cost_per_good_unit: float
+    breakdown: dict[str, float]
+    nre: float
+    unit_price: float
+    volume: float
+    revenue: float
+    profit: float
+    margin: float
+    breakeven_volume: float
+    violations: list[str]
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+def specs_from_design(design: Design) -> list[DieSpec]:
+    """Die specs of an explicit design, identical die designs merged (one NRE)."""
+    merged: dict[tuple, DieSpec] = {}
+    for j, die in enumerate(design.die):
+        spec = DieSpec(
+            process=die.process,
+            blocks=dict(die.blocks),
+            spares=dict(die.spares),
+            repair=dict(die.repair),
+            copies=die.copies,
+            name=die.name or f"die{j + 1}",
+        )
+        if spec.key() in merged:
+            old = merged[spec.key()]
+            spec = DieSpec(**{**asdict(old), "copies": old.copies + spec.copies})
+        merged[spec.key()] = spec
+    return list(merged.values())
+
+
+def die_batch(evaluator: Evaluator, specs: list[DieSpec], packaging_index: int) -> DieBatch:
+    problem = evaluator.problem
+    n, b = len(specs), evaluator.blocks.n_blocks
+    instances = np.zeros((n, b), dtype=np.int64)
+    spares = np.zeros((n, b), dtype=np.int64)
+    repairs = np.zeros((n, b), dtype=np.int64)
+    for i, spec in enumerate(specs):
+        for table, target in ((spec.blocks, instances), (spec.spares, spares), (spec.repair, repairs)):
+            for name, value in table.items():
+                target[i, problem.block_index(name)] = value
+    packaging = problem.packaging[packaging_index]
+    return DieBatch(
+        process=np.array([problem.process_index(s.process) for s in specs], dtype=np.int64),
+        instances=instances,
+        spares=spares,
+        repairs=repairs,
+        interface_area_mm2=evaluator.interface_area_mm2(instances, packaging),
+    )
+
+
+def evaluate_specs(
+    evaluator: Evaluator,
+    specs: list[DieSpec],
+    packaging_name: str,
+    design_name: str = "design",
+    source: str = "<problem>",
+) -> DesignResult:
+    """Price one complete design given as die specs on a named packaging option."""
+    problem = evaluator.problem
+    g = problem.packaging_index(packaging_name)
+    packaging = problem.packaging[g]
+    prices = evaluator.price_dies(die_batch(evaluator, specs, g))
+    where = f"design[{design_name}]"
+    for i, spec in enumerate(specs):
+        process = problem.process[problem.process_index(spec.process)]
+        if not prices.fits_reticle[i]:
+            raise ProblemError(
+                source,
+                f"{where}.die[{spec.name}]",
+                f"die of {prices.area_mm2[i]:.1f} mm^2 ({prices.width_mm[i]:.1f} x "
+                f"{prices.height_mm[i]:.1f} mm) exceeds the {process.reticle_width_mm:g} x "
+                f"{process.reticle_height_mm:g} mm reticle field of process '{process.name}'; "
+                "split it over more dies",
+            )
+    copies = np.array([[s.copies for s in specs]])
+    product = evaluator.assemble(g, prices, np.arange(len(specs))[None, :], copies)
+    if not product.carrier_feasible[0]:
+        raise ProblemError(
+            source,
+            f"{where}.packaging",
+            f"interposer of {product.carrier_area_mm2[0]:.0f} mm^2 exceeds the limit of "
+            f"{packaging.interposer_max_area_mm2:g} mm^2 of '{packaging.name}'; "
+            "use less silicon or another packaging",
+        )
+    violations = []
+    limits = problem.constraints
+    for i, spec in enumerate(specs):
+        area = prices.area_mm2[i]
+        if area < limits.min_die_area_mm2 - 1e-9 or area > limits.max_die_area_mm2 + 1e-9:
+            violations.append(
+                f"die '{spec.name}' area {area:.1f} mm^2 is outside the allowed range "
+                f"[{limits.min_die_area_mm2:g}, {limits.max_die_area_mm2:g}] mm^2"
+            )
+    n_dies = int(copies.sum())
+    if n_dies > limits.max_dies:
+        violations.append(f"{n_dies} dies exceed constraints.max_dies = {limits.max_dies}")
+    dies = [
+        DieResult(
+            name=spec.name,
+            process=spec.process,
+            copies=spec.copies,
+            blocks=dict(spec.blocks),
+            spares={k: v for k, v in spec.spares.items() if v},
+            repair={k: v for k, v in spec.repair.items() if v},
+            area_mm2=float(prices.area_mm2[i]),
+            width_mm=float(prices.width_mm[i]),
+            height_mm=float(prices.height_mm[i]),
+            interface_area_mm2=float(prices.interface_area_mm2[i]),
+            gross_dies_per_wafer=float(prices.gross_dies_per_wafer[i]),
+            hard_yield=float(np.exp(prices.log_hard_yield[i])),
+            soft_yield=float(np.exp(prices.log_soft_yield[i])),
+            die_yield=float(prices.die_yield[i]),
+            pass_fraction=float(prices.pass_fraction[i]),
+            defect_level=float(prices.defect_level[i]),
+            raw_cost=float(prices.raw_cost[i]),
+            sort_cost=float(prices.sort_cost[i]),
+            cost_per_passed_die=float(prices.cost_per_passed_die[i]),
+            nre=float(prices.nre[i]),
+        )
+        for i, spec in enumerate(specs)
+    ]
+    market = problem.market
+    unit_margin = market.unit_price - float(product.manufacturing_cost_per_good_unit[0])
+    profit = float(product.profit[0])
+    return DesignResult(
+        design=design_name,
+        packaging=packaging.name,
+        packaging_kind=packaging.kind,
+        currency=market.currency,
+        dies=dies,
+        n_dies=n_dies,
+        total_die_area_mm2=float(product.total_die_area_mm2[0]),
+        carrier_area_mm2=float(product.carrier_area_mm2[0]),
+        package_yield=float(product.package_yield[0]),
+        manufacturing_cost_per_good_unit=float(product.manufacturing_cost_per_good_unit[0]),
+        cost_per_good_unit=float(product.cost_per_good_unit[0]),
+        breakdown={name: float(getattr(product, name)[0]) for name in COST_COMPONENTS},
+        nre=float(product.nre[0]),
+        unit_price=market.unit_price,
+        volume=market.volume,
+        revenue=float(product.revenue[0]),
+        profit=profit,
+        margin=profit / float(product.revenue[0]),
+        breakeven_volume=float(product.nre[0]) / unit_margin if unit_margin > 0 else float("inf"),
+        violations=violations,
+    )
+
+
+def evaluate_design(evaluator: Evaluator, design: Design, source: str = "<problem>") -> DesignResult:
+    """Price an explicit design from the problem file."""
+    return evaluate_specs(
+        evaluator, specs_from_design(design), design.packaging, design.name, source
+    )

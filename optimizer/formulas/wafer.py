@@ -1,0 +1,333 @@
+"""Gross dies per wafer: the classic approximation and an exact count.
+
+A wafer holds a regular grid of rectangular die sites (die plus scribe line in each
+direction), stepped like a stepper map: every row shares one x-offset. A site counts when
+all four of its corners lie inside the usable circle (wafer radius minus edge exclusion).
+The exact count is maximised over the grid offset. The count is piecewise constant in the
+offset and an optimal grid can be slid until two lattice corners touch the circle, so the
+exact search only has to try those touching positions (see `gross_dies_exact`).
+
+The classic approximation ``pi d^2 / (4 S) - pi d / sqrt(2 S)`` is kept for reports and as
+a check; it ignores the die shape.
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+
+import numpy as np
+
+__all__ = [
+    "usable_radius_mm",
+    "gross_dies_classic",
+    "die_shape_mm",
+    "gross_dies_exact",
+    "gross_dies_exact_many",
+    "wafer_map",
+]
+
+# A corner may sit this far outside the circle and still count: it only absorbs
+# floating-point rounding of corners placed exactly on the edge.
+_CLEARANCE_TOL_MM = 1e-9
+
+# Candidates x rows evaluated at once; a handful of float64 temporaries of this size
+# keeps the peak well under 200 MB.
+_CHUNK_ELEMENTS = 1_000_000
+
+# Footprints are rounded to this grid before caching so that equal footprints computed
+# along different arithmetic paths share one entry.
+_CACHE_DECIMALS = 9
+
+
+def usable_radius_mm(wafer_diameter_mm: float, edge_exclusion_mm: float) -> float:
+    """Radius of the wafer area that may hold dies.
+
+    Parameters
+    ----------
+    wafer_diameter_mm : float
+        Wafer diameter [mm].
+    edge_exclusion_mm : float
+        Ring at the wafer edge where no die may lie [mm].
+
+    Returns
+    -------
+    float
+        Usable radius ``wafer_diameter_mm / 2 - edge_exclusion_mm`` [mm], never below 0.
+
+    Raises
+    ------
+    ValueError
+        If the diameter is not positive or the edge exclusion is negative.
+    """
+    if not wafer_diameter_mm > 0:
+        raise ValueError(f"wafer_diameter_mm must be > 0, got {wafer_diameter_mm}")
+    if not edge_exclusion_mm >= 0:
+        raise ValueError(f"edge_exclusion_mm must be >= 0, got {edge_exclusion_mm}")
+    return max(0.5 * float(wafer_diameter_mm) - float(edge_exclusion_mm), 0.0)
+
+
+def gross_dies_classic(usable_diameter_mm, site_area_mm2):
+    """Classic dies-per-wafer approximation (area term minus edge-loss term).
+
+    Parameters
+    ----------
+    usable_diameter_mm : float or array_like
+        Usable diameter ``d`` of the wafer [mm].
+    site_area_mm2 : float or array_like
+        Area ``S`` of one die site, die plus scribe [mm^2]. Broadcasts with
+        `usable_diameter_mm`.
+
+    Returns
+    -------
+    float or numpy.ndarray
+        ``N = pi d^2 / (4 S) - pi d / sqrt(2 S)`` [dies], not floored. Goes negative for
+        sites comparable to the wafer, where the formula no longer applies.
+
+    Notes
+    -----
+    The first term is the wafer area over the site area; the second approximates the
+    partial sites lost along the circumference. The formula sees only the site area, not
+    its shape: it overestimates for long thin dies and underestimates badly for very
+    large dies (compare `gross_dies_exact`).
+
+    References
+    ----------
+    J. L. Hennessy and D. A. Patterson, *Computer Architecture: A Quantitative Approach*,
+    section on the cost of an integrated circuit.
+    """
+    d = np.asarray(usable_diameter_mm, dtype=float)
+    s = np.asarray(site_area_mm2, dtype=float)
+    n = np.pi * d**2 / (4.0 * s) - np.pi * d / np.sqrt(2.0 * s)
+    return float(n) if n.ndim == 0 else n
+
+
+def die_shape_mm(die_area_mm2, aspect_ratio=1.0):
+    """Width and height of a rectangular die of given area and aspect ratio.
+
+    Parameters
+    ----------
+    die_area_mm2 : float or array_like
+        Die area [mm^2].
+    aspect_ratio : float or array_like, optional
+        Width over height [-]; above 1 means a die wider than tall. Broadcasts with
+        `die_area_mm2`. Default 1 (square).
+
+    Returns
+    -------
+    width_mm : numpy.ndarray
+        ``sqrt(area * aspect_ratio)`` [mm].
+    height_mm : numpy.ndarray
+        ``sqrt(area / aspect_ratio)`` [mm].
+    """
+    area = np.asarray(die_area_mm2, dtype=float)
+    ratio = np.asarray(aspect_ratio, dtype=float)
+    if np.any(ratio <= 0):
+        raise ValueError("aspect_ratio must be > 0")
+    return np.sqrt(area * ratio), np.sqrt(area / ratio)
+
+
+def _check_footprint(usable_radius_mm: float, site_width_mm: float, site_height_mm: float) -> None:
+    if not usable_radius_mm >= 0:
+        raise ValueError(f"usable_radius_mm must be >= 0, got {usable_radius_mm}")
+    if not (site_width_mm > 0 and site_height_mm > 0):
+        raise ValueError(
+            f"site width and height must be > 0, got {site_width_mm} x {site_height_mm}"
+        )
+
+
+def _candidate_offsets(r: float, w: float, h: float) -> tuple[np.ndarray, np.ndarray]:
+    """Grid offsets at which two lattice corners lie on the circle of radius `r`.
+
+    For each lattice difference vector ``v = (a w, b h)`` with ``0 < |v| <= 2 r`` the two
+    points ``p`` with ``|p| = |p + v| = r`` are ``-v/2 +- n sqrt(r^2 - |v|^2/4)``, ``n`` a
+    unit normal of ``v``; the offset is ``p`` reduced modulo the lattice.
+
+    Only ``a >= 0, b >= 0`` and the ``+`` root are generated: the circle and the lattice
+    share the mirror symmetries x -> -x and y -> -y (and so the point reflection), which
+    leave the site count unchanged and map the touching pairs of ``(a, b)``, ``(a, -b)``,
+    ``(-a, b)``, ``(-a, -b)`` and both roots onto one another.
+    """
+    a_max = int(math.floor(2.0 * r / w))
+    b_max = int(math.floor(2.0 * r / h))
+    a, b = np.meshgrid(np.arange(a_max + 1, dtype=float), np.arange(b_max + 1, dtype=float))
+    vx = (a * w).ravel()
+    vy = (b * h).ravel()
+    len2 = vx**2 + vy**2
+    # Allow the rounding of |v| = 2r (two corners diametrically opposite).
+    keep = (len2 > 0) & (len2 <= (2.0 * r) ** 2 * (1 + 1e-12))
+    vx, vy, len2 = vx[keep], vy[keep], len2[keep]
+    length = np.sqrt(len2)
+    half_chord = np.sqrt(np.maximum(r * r - 0.25 * len2, 0.0))
+    px = -0.5 * vx - vy / length * half_chord
+    py = -0.5 * vy + vx / length * half_chord
+    return np.mod(px, w), np.mod(py, h)
+
+
+def _row_indices(r: float, h: float) -> np.ndarray:
+    """Row numbers ``j`` (row spans ``[y0 + j h, y0 + (j+1) h]``, ``0 <= y0 < h``) that can
+    meet the circle."""
+    j_lo = int(math.floor(-r / h)) - 1
+    j_hi = int(math.ceil(r / h))
+    return np.arange(j_lo, j_hi + 1, dtype=float)
+
+
+def _counts_at(x0: np.ndarray, y0: np.ndarray, r: float, w: float, h: float) -> np.ndarray:
+    """Whole sites inside the circle for each offset ``(x0[k], y0[k])`` [dies]."""
+    rows = _row_indices(r, h)
+    r_tol2 = (r + _CLEARANCE_TOL_MM) ** 2
+    chunk = max(1, _CHUNK_ELEMENTS // rows.size)
+    out = np.empty(x0.size, dtype=np.int64)
+    mid_rows = (rows + 0.5) * h
+    for start in range(0, x0.size, chunk):
+        stop = min(start + chunk, x0.size)
+        # The row edge farther from the centre limits the chord: |centre| + h/2.
+        y_far = np.abs(y0[start:stop, None] + mid_rows[None, :]) + 0.5 * h
+        half_chord_w = np.sqrt(np.maximum(r_tol2 - y_far * y_far, 0.0)) / w
+        xs = x0[start:stop, None] / w
+        # Sites i with x0 + i w >= -c and x0 + (i+1) w <= c.
+        n = np.floor(half_chord_w - xs) + np.floor(half_chord_w + xs)
+        out[start:stop] = np.maximum(n, 0.0).sum(axis=1)
+    return out
+
+
+def _best_offset(r: float, w: float, h: float) -> tuple[int, float, float]:
+    """Maximum count and an offset ``(x0, y0)`` that reaches it."""
+    if 2.0 * r < min(w, h):
+        return 0, 0.0, 0.0
+    x0, y0 = _candidate_offsets(r, w, h)
+    if x0.size == 0:
+        return 0, 0.0, 0.0
+    counts = _counts_at(x0, y0, r, w, h)
+    k = int(np.argmax(counts))
+    return int(counts[k]), float(x0[k]), float(y0[k])
+
+
+def gross_dies_exact(usable_radius_mm: float, site_width_mm: float, site_height_mm: float) -> int:
+    """Exact maximum number of whole die sites on a wafer.
+
+    Parameters
+    ----------
+    usable_radius_mm : float
+        Radius of the usable wafer area [mm] (see `usable_radius_mm`).
+    site_width_mm : float
+        Site pitch along x, die width plus scribe [mm].
+    site_height_mm : float
+        Site pitch along y, die height plus scribe [mm].
+
+    Returns
+    -------
+    int
+        Largest number of sites of one regular grid (common x-offset for all rows) whose
+        four corners all lie inside the usable circle, over all grid offsets [dies].
+
+    Notes
+    -----
+    Convention: a corner exactly on the circle counts as inside; a corner counts when its
+    distance from the centre is at most ``R + 1e-9`` mm, a clearance that only absorbs
+    floating-point rounding.
+
+    Why the search is exact: fix an optimal offset and the set S of sites it keeps. The
+    offsets that keep every site of S form an intersection of disks of radius R, one per
+    corner of S. These disks have distinct centres (every site has four corners), so the
+    intersection is not a whole disk and has a point where two boundary circles meet:
+    there two lattice corners ``p`` and ``p + v`` lie on the usable circle, with ``v`` a
+    lattice difference vector, ``0 < |v| <= 2R``. Trying every such position (reduced
+    modulo the lattice) therefore reaches the optimum; no single-touch position is needed
+    because the four corners of any kept site already supply the pairs. Mirror symmetries
+    of circle and grid cut the candidates to about one per die site.
+
+    For each candidate offset the count is analytic: row ``j`` keeps the sites between
+    ``-c_j`` and ``c_j``, ``c_j = sqrt(R^2 - y_j^2)`` with ``y_j`` the row edge farther
+    from the centre. Work grows as the number of sites times the number of rows, about
+    ``(R^2 / S)^1.5``: milliseconds for 100 mm^2 dies on a 300 mm wafer, well under a
+    second for 1 mm^2 dies.
+    """
+    _check_footprint(usable_radius_mm, site_width_mm, site_height_mm)
+    return _best_offset(float(usable_radius_mm), float(site_width_mm), float(site_height_mm))[0]
+
+
+@functools.lru_cache(maxsize=4096)
+def _gross_dies_exact_cached(r: float, w: float, h: float) -> int:
+    # Keys are sorted (w <= h): a quarter turn maps the grid onto itself.
+    return _best_offset(r, w, h)[0]
+
+
+def gross_dies_exact_many(usable_radius_mm, site_width_mm, site_height_mm) -> np.ndarray:
+    """Vectorised `gross_dies_exact` over broadcast arrays of footprints.
+
+    Parameters
+    ----------
+    usable_radius_mm : float or array_like
+        Usable wafer radius [mm].
+    site_width_mm : float or array_like
+        Site pitch along x [mm].
+    site_height_mm : float or array_like
+        Site pitch along y [mm].
+
+    Returns
+    -------
+    numpy.ndarray of int64
+        Exact gross dies [dies], in the broadcast shape of the inputs.
+
+    Notes
+    -----
+    Inputs are rounded to 1e-9 mm and width/height sorted (the count is unchanged by a
+    quarter turn) before a cache lookup, so each distinct footprint is counted once, also
+    across calls.
+    """
+    r, w, h = np.broadcast_arrays(
+        np.asarray(usable_radius_mm, dtype=float),
+        np.asarray(site_width_mm, dtype=float),
+        np.asarray(site_height_mm, dtype=float),
+    )
+    if np.any(~(r >= 0)) or np.any(~(w > 0)) or np.any(~(h > 0)):
+        raise ValueError("usable radius must be >= 0 and site width and height > 0")
+    r = np.round(r, _CACHE_DECIMALS)
+    lo = np.round(np.minimum(w, h), _CACHE_DECIMALS)
+    hi = np.round(np.maximum(w, h), _CACHE_DECIMALS)
+    keys = np.stack([r.ravel(), lo.ravel(), hi.ravel()], axis=1)
+    unique, inverse = np.unique(keys, axis=0, return_inverse=True)
+    counts = np.array(
+        [_gross_dies_exact_cached(float(a), float(b), float(c)) for a, b, c in unique],
+        dtype=np.int64,
+    )
+    return counts[np.asarray(inverse).ravel()].reshape(r.shape)
+
+
+def wafer_map(usable_radius_mm: float, site_width_mm: float, site_height_mm: float) -> np.ndarray:
+    """Lower-left corners of the sites of an optimal grid placement.
+
+    Parameters
+    ----------
+    usable_radius_mm : float
+        Usable wafer radius [mm]; the circle is centred at the origin.
+    site_width_mm : float
+        Site pitch along x [mm].
+    site_height_mm : float
+        Site pitch along y [mm].
+
+    Returns
+    -------
+    numpy.ndarray
+        Array of shape ``(n, 2)`` with the ``(x, y)`` lower-left corner of each site [mm],
+        rows ordered bottom to top and left to right; ``n`` equals `gross_dies_exact`.
+    """
+    _check_footprint(usable_radius_mm, site_width_mm, site_height_mm)
+    r, w, h = float(usable_radius_mm), float(site_width_mm), float(site_height_mm)
+    count, x0, y0 = _best_offset(r, w, h)
+    if count == 0:
+        return np.empty((0, 2))
+    rows = _row_indices(r, h)
+    y_lo = y0 + rows * h
+    y_far = np.abs(y_lo + 0.5 * h) + 0.5 * h
+    half_chord = np.sqrt(np.maximum((r + _CLEARANCE_TOL_MM) ** 2 - y_far**2, 0.0))
+    # Same arithmetic as _counts_at so the map and the count agree to the last site.
+    first = -np.floor(half_chord / w + x0 / w)
+    last = np.floor(half_chord / w - x0 / w) - 1.0
+    corners = [
+        np.column_stack([x0 + np.arange(i0, i1 + 1) * w, np.full(int(i1 - i0 + 1), y)])
+        for i0, i1, y in zip(first, last, y_lo, strict=True)
+        if i1 >= i0
+    ]
+    return np.concatenate(corners, axis=0)

@@ -1,0 +1,474 @@
+"""The problem file: schema, validation and loading.
+
+A problem file is TOML. Every physical quantity is a string with a unit, converted once
+here to the internal base (mm, mm^2, defects per cm^2, GB/s). Money is a plain number in
+the file's one currency. All validation lives in this module: later layers may assume a
+loaded :class:`Problem` is consistent (names resolve, numbers are in range).
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from pathlib import Path
+from typing import Annotated, Literal
+
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    ValidationError,
+    field_validator,
+    model_validator,
+)
+
+from optimizer.units import (
+    AREA,
+    BANDWIDTH,
+    DEFECT_DENSITY,
+    INTERFACE_DENSITY,
+    LENGTH,
+    QuantityKind,
+    UnitError,
+    to_base,
+)
+
+BLOCK_KINDS = ("logic", "memory", "analog", "io")
+YIELD_MODEL_NAMES = (
+    "poisson",
+    "murphy",
+    "exponential",
+    "sqrt_exponential",
+    "negative_binomial",
+    "bose_einstein",
+)
+PACKAGING_KINDS = ("single_die", "organic_substrate", "silicon_interposer", "stacked")
+
+
+class ProblemError(Exception):
+    """A problem file that cannot be used, with the field at fault and what to do."""
+
+    def __init__(self, source: str, field: str, message: str):
+        self.source = source
+        self.field = field
+        self.message = message
+        super().__init__(self.line())
+
+    def line(self) -> str:
+        where = f"{self.source}: {self.field}" if self.field else self.source
+        return f"{where}: {self.message}"
+
+
+def _quantity(kind: QuantityKind):
+    def convert(value: object) -> float:
+        try:
+            return to_base(value, kind)
+        except UnitError as exc:
+            raise ValueError(str(exc)) from None
+
+    return BeforeValidator(convert)
+
+
+LengthMm = Annotated[float, _quantity(LENGTH)]
+AreaMm2 = Annotated[float, _quantity(AREA)]
+DefectDensityPerCm2 = Annotated[float, _quantity(DEFECT_DENSITY)]
+BandwidthGBps = Annotated[float, _quantity(BANDWIDTH)]
+InterfaceDensityGBpsPerMm2 = Annotated[float, _quantity(INTERFACE_DENSITY)]
+Money = Annotated[float, Field(ge=0)]
+Fraction = Annotated[float, Field(ge=0, le=1)]
+PositiveFraction = Annotated[float, Field(gt=0, le=1)]
+
+
+class _Section(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class Market(_Section):
+    """What the product sells for and how many good units the market takes."""
+
+    currency: str = "USD"
+    unit_price: Annotated[float, Field(gt=0)]
+    volume: Annotated[float, Field(gt=0)]
+
+
+class Constraints(_Section):
+    """Limits every design must respect."""
+
+    min_die_area_mm2: AreaMm2 = Field(default=0.0, alias="min_die_area")
+    max_die_area_mm2: AreaMm2 = Field(default=math.inf, alias="max_die_area")
+    max_dies: Annotated[int, Field(ge=1)] = 16
+    keep_together: list[list[str]] = Field(default_factory=list)
+    keep_apart: list[list[str]] = Field(default_factory=list)
+
+    @model_validator(mode="after")
+    def _range(self) -> Constraints:
+        if self.min_die_area_mm2 > self.max_die_area_mm2:
+            raise ValueError("min_die_area exceeds max_die_area; swap or widen them")
+        return self
+
+
+class AreaScale(_Section):
+    """Area of each block kind on this process relative to the reference area."""
+
+    logic: Annotated[float, Field(gt=0)] = 1.0
+    memory: Annotated[float, Field(gt=0)] = 1.0
+    analog: Annotated[float, Field(gt=0)] = 1.0
+    io: Annotated[float, Field(gt=0)] = 1.0
+
+    def of(self, kind: str) -> float:
+        return float(getattr(self, kind))
+
+
+class Process(_Section):
+    """One process option: wafer, defect density, yield model, test and one-time costs."""
+
+    name: str
+    wafer_diameter_mm: LengthMm = Field(alias="wafer_diameter")
+    edge_exclusion_mm: LengthMm = Field(default=3.0, alias="edge_exclusion")
+    scribe_width_mm: LengthMm = Field(default=0.1, alias="scribe_width")
+    wafer_cost: Money
+    defect_density_per_cm2: DefectDensityPerCm2 = Field(alias="defect_density")
+    yield_model: Literal[
+        "poisson", "murphy", "exponential", "sqrt_exponential", "negative_binomial", "bose_einstein"
+    ] = "negative_binomial"
+    clustering_alpha: Annotated[float, Field(gt=0)] | None = None
+    critical_layers: Annotated[int, Field(ge=1)] | None = None
+    systematic_yield: PositiveFraction = 1.0
+    reticle_width_mm: LengthMm = Field(default=26.0, alias="reticle_width")
+    reticle_height_mm: LengthMm = Field(default=33.0, alias="reticle_height")
+    mask_set_cost: Money = 0.0
+    sort_cost_per_die: Money = 0.0
+    fault_coverage: Fraction = 1.0
+    # None: square, stretched to the field's short side when a square would not fit.
+    die_aspect_ratio: Annotated[float, Field(ge=1)] | None = None
+    area_scale: AreaScale = Field(default_factory=AreaScale)
+    # "exact": whole sites on the wafer; "formula": the classic approximation, floored;
+    # "area_ratio": usable area / site area, no edge loss (idealised studies and checks).
+    die_count: Literal["exact", "formula", "area_ratio"] = "exact"
+
+    @model_validator(mode="after")
+    def _model_parameters(self) -> Process:
+        if self.yield_model == "negative_binomial" and self.clustering_alpha is None:
+            raise ValueError(
+                "yield_model 'negative_binomial' needs clustering_alpha (typically 0.5 to 5)"
+            )
+        if self.yield_model == "bose_einstein" and self.critical_layers is None:
+            raise ValueError("yield_model 'bose_einstein' needs critical_layers (an integer)")
+        if 2 * self.edge_exclusion_mm >= self.wafer_diameter_mm:
+            raise ValueError("edge_exclusion leaves no usable wafer; make it smaller")
+        return self
+
+
+class Packaging(_Section):
+    """One packaging option and its costs, yields and die-to-die interface figures."""
+
+    name: str
+    kind: Literal["single_die", "organic_substrate", "silicon_interposer", "stacked"]
+    max_dies: Annotated[int, Field(ge=1)] = 1
+    bond_cost_per_die: Money = 0.0
+    bond_yield: PositiveFraction = 1.0
+    carrier_cost: Money = 0.0
+    carrier_yield: PositiveFraction = 1.0
+    package_cost: Money = 0.0
+    package_yield: PositiveFraction = 1.0
+    final_test_cost: Money = 0.0
+    interface_density_gbps_per_mm2: InterfaceDensityGBpsPerMm2 | None = Field(
+        default=None, alias="interface_density"
+    )
+    port_area_mm2: AreaMm2 = Field(default=0.0, alias="port_area")
+    design_cost: Money = 0.0
+    interposer_process: str | None = None
+    interposer_area_factor: Annotated[float, Field(ge=1)] = 1.1
+    interposer_extra_area_mm2: AreaMm2 = Field(default=0.0, alias="interposer_extra_area")
+    interposer_max_area_mm2: AreaMm2 = Field(default=math.inf, alias="interposer_max_area")
+    interposer_defect_sensitivity: Fraction = 0.1
+
+    @model_validator(mode="after")
+    def _kind_fields(self) -> Packaging:
+        if self.kind == "single_die" and self.max_dies != 1:
+            raise ValueError("a single_die packaging holds exactly one die; set max_dies = 1")
+        if self.kind != "single_die" and self.interface_density_gbps_per_mm2 is None:
+            raise ValueError(
+                f"packaging kind '{self.kind}' needs interface_density, e.g. \"200 GB/s/mm^2\""
+            )
+        if self.kind == "silicon_interposer" and self.interposer_process is None:
+            raise ValueError("a silicon_interposer needs interposer_process (a process name)")
+        return self
+
+
+class ArrayRepair(_Section):
+    """Spare rows/columns for a memory array block."""
+
+    repairable_fraction: Fraction
+    repair_choices: list[Annotated[int, Field(ge=0)]] = Field(min_length=1)
+    area_per_repair_mm2: AreaMm2 = Field(default=0.0, alias="area_per_repair")
+    test_cost_per_die: Money = 0.0
+
+
+class Block(_Section):
+    """A functional block of the design; ``count`` identical instances of it."""
+
+    name: str
+    kind: Literal["logic", "memory", "analog", "io"] = "logic"
+    area_mm2: AreaMm2 = Field(alias="area")
+    count: Annotated[int, Field(ge=1)] = 1
+    defect_sensitivity: Fraction = 1.0
+    spare_choices: list[Annotated[int, Field(ge=0)]] = Field(default_factory=lambda: [0])
+    repair: ArrayRepair | None = None
+
+    @field_validator("area_mm2")
+    @classmethod
+    def _positive_area(cls, value: float) -> float:
+        if not value > 0:
+            raise ValueError("area must be positive, e.g. \"12 mm^2\"")
+        return value
+
+    @field_validator("spare_choices")
+    @classmethod
+    def _spares_include_none(cls, value: list[int]) -> list[int]:
+        return sorted(set(value) | {0})
+
+
+class Link(_Section):
+    """Bandwidth between two blocks; paid as interface area when the blocks are split."""
+
+    blocks: Annotated[list[str], Field(min_length=2, max_length=2)]
+    bandwidth_gbps: BandwidthGBps = Field(alias="bandwidth")
+
+
+class DesignCost(_Section):
+    """One-time design cost of each distinct die design."""
+
+    per_die_design: Money = 0.0
+    per_mm2: Money = 0.0
+
+
+class DieChoice(_Section):
+    """One die design in an explicit design: its blocks, process, options and copies."""
+
+    name: str | None = None
+    process: str
+    copies: Annotated[int, Field(ge=1)] = 1
+    blocks: dict[str, Annotated[int, Field(ge=1)]] = Field(min_length=1)
+    spares: dict[str, Annotated[int, Field(ge=0)]] = Field(default_factory=dict)
+    repair: dict[str, Annotated[int, Field(ge=0)]] = Field(default_factory=dict)
+
+
+class Design(_Section):
+    """An explicit named design to evaluate."""
+
+    name: str
+    packaging: str
+    die: list[DieChoice] = Field(min_length=1)
+
+
+class Problem(_Section):
+    """A whole problem file, validated and in base units."""
+
+    title: str = "untitled problem"
+    note: str = ""
+    market: Market
+    constraints: Constraints = Field(default_factory=Constraints)
+    process: list[Process] = Field(min_length=1)
+    packaging: list[Packaging] = Field(min_length=1)
+    design_cost: DesignCost = Field(default_factory=DesignCost)
+    block: list[Block] = Field(min_length=1)
+    link: list[Link] = Field(default_factory=list)
+    design: list[Design] = Field(default_factory=list)
+
+    # Lookups used by later layers; names are unique (checked in validate_references).
+    def process_index(self, name: str) -> int:
+        return [p.name for p in self.process].index(name)
+
+    def packaging_index(self, name: str) -> int:
+        return [p.name for p in self.packaging].index(name)
+
+    def block_index(self, name: str) -> int:
+        return [b.name for b in self.block].index(name)
+
+    def design_named(self, name: str) -> Design:
+        for design in self.design:
+            if design.name == name:
+                return design
+        raise KeyError(name)
+
+
+def _field_path(loc: tuple, data: dict) -> str:
+    """Turn a pydantic location into ``process[n3].defect_density`` style text."""
+    parts: list[str] = []
+    node: object = data
+    for item in loc:
+        if isinstance(item, int):
+            label = str(item)
+            if isinstance(node, list) and item < len(node):
+                element = node[item]
+                if isinstance(element, dict) and isinstance(element.get("name"), str):
+                    label = element["name"]
+                node = element
+            else:
+                node = None
+            parts[-1] = f"{parts[-1]}[{label}]" if parts else f"[{label}]"
+        else:
+            key = str(item)
+            if key.startswith("function-") or key in {"constrained-float", "int", "float"}:
+                continue
+            parts.append(key)
+            node = node.get(key) if isinstance(node, dict) else None
+    return ".".join(parts)
+
+
+def _first_error(exc: ValidationError, data: dict) -> tuple[str, str]:
+    error = exc.errors()[0]
+    loc = tuple(x for x in error["loc"] if not (isinstance(x, str) and x.startswith("literal")))
+    field = _field_path(loc, data)
+    kind = error["type"]
+    message = error["msg"]
+    if message.startswith("Value error, "):
+        message = message[len("Value error, ") :]
+    if kind == "missing":
+        message = "is required but missing; add it to the file"
+    elif kind == "extra_forbidden":
+        message = "is not a known field; check its spelling against the README"
+    elif kind == "literal_error":
+        message = f"{message}"
+    elif kind in {"greater_than_equal", "greater_than", "less_than_equal", "less_than"}:
+        message = f"{message} (got {error.get('input')!r})"
+    return field, message
+
+
+def _duplicates(names: list[str]) -> str | None:
+    seen: set[str] = set()
+    for name in names:
+        if name in seen:
+            return name
+        seen.add(name)
+    return None
+
+
+def validate_references(problem: Problem, source: str) -> None:
+    """Check that every name used in the file resolves and every design is complete."""
+
+    def fail(field: str, message: str) -> None:
+        raise ProblemError(source, field, message)
+
+    for section, items in (
+        ("process", problem.process),
+        ("packaging", problem.packaging),
+        ("block", problem.block),
+        ("design", problem.design),
+    ):
+        twice = _duplicates([item.name for item in items])
+        if twice is not None:
+            fail(f"{section}[{twice}].name", f"the name '{twice}' is used twice; make it unique")
+
+    processes = {p.name: p for p in problem.process}
+    blocks = {b.name: b for b in problem.block}
+    packagings = {p.name: p for p in problem.packaging}
+
+    for pack in problem.packaging:
+        if pack.interposer_process is not None and pack.interposer_process not in processes:
+            fail(
+                f"packaging[{pack.name}].interposer_process",
+                f"unknown process '{pack.interposer_process}'; use one of {sorted(processes)}",
+            )
+    for i, link in enumerate(problem.link):
+        for name in link.blocks:
+            if name not in blocks:
+                fail(f"link[{i}].blocks", f"unknown block '{name}'; use one of {sorted(blocks)}")
+        if link.blocks[0] == link.blocks[1]:
+            fail(f"link[{i}].blocks", "a link joins two different blocks; name two blocks")
+    for group_name in ("keep_together", "keep_apart"):
+        for i, group in enumerate(getattr(problem.constraints, group_name)):
+            for name in group:
+                if name not in blocks:
+                    fail(
+                        f"constraints.{group_name}[{i}]",
+                        f"unknown block '{name}'; use one of {sorted(blocks)}",
+                    )
+    for block in problem.block:
+        if block.repair is not None and block.kind != "memory":
+            fail(f"block[{block.name}].repair", "array repair applies to memory blocks only")
+    for design in problem.design:
+        where = f"design[{design.name}]"
+        if design.packaging not in packagings:
+            fail(
+                f"{where}.packaging",
+                f"unknown packaging '{design.packaging}'; use one of {sorted(packagings)}",
+            )
+        placed: dict[str, int] = {}
+        for j, die in enumerate(design.die):
+            die_where = f"{where}.die[{die.name or j}]"
+            if die.process not in processes:
+                fail(
+                    f"{die_where}.process",
+                    f"unknown process '{die.process}'; use one of {sorted(processes)}",
+                )
+            for table in ("blocks", "spares", "repair"):
+                for name in getattr(die, table):
+                    if name not in blocks:
+                        fail(
+                            f"{die_where}.{table}.{name}",
+                            f"unknown block '{name}'; use one of {sorted(blocks)}",
+                        )
+            for name, spare in die.spares.items():
+                if name not in die.blocks:
+                    fail(f"{die_where}.spares.{name}", f"block '{name}' is not on this die")
+            for name, repairs in die.repair.items():
+                if blocks[name].repair is None:
+                    fail(
+                        f"{die_where}.repair.{name}",
+                        f"block '{name}' has no [block.repair] section; add one or drop this",
+                    )
+                if name not in die.blocks:
+                    fail(f"{die_where}.repair.{name}", f"block '{name}' is not on this die")
+            for name, count in die.blocks.items():
+                placed[name] = placed.get(name, 0) + count * die.copies
+        for name, block in blocks.items():
+            got = placed.get(name, 0)
+            if got == 0:
+                fail(
+                    f"{where}.die",
+                    f"block '{name}' is placed on no die; add it to one die's blocks",
+                )
+            if got != block.count:
+                fail(
+                    f"{where}.die",
+                    f"block '{name}' is placed {got} times (copies x instances) but the "
+                    f"design has {block.count}; place each instance exactly once",
+                )
+        n_dies = sum(die.copies for die in design.die)
+        pack = packagings[design.packaging]
+        if n_dies > pack.max_dies:
+            fail(
+                f"{where}.die",
+                f"{n_dies} dies exceed packaging '{pack.name}' max_dies = {pack.max_dies}",
+            )
+
+
+def parse_problem(data: dict, source: str = "<problem>") -> Problem:
+    """Validate a decoded TOML document into a :class:`Problem` (raises ProblemError)."""
+    try:
+        problem = Problem.model_validate(data)
+    except ValidationError as exc:
+        field, message = _first_error(exc, data)
+        raise ProblemError(source, field, message) from None
+    validate_references(problem, source)
+    return problem
+
+
+def load_problem(path: str | Path) -> Problem:
+    """Read and validate a problem file (raises ProblemError with file, field and fix)."""
+    path = Path(path)
+    source = str(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ProblemError(source, "", "file not found; check the path") from None
+    except OSError as exc:
+        raise ProblemError(source, "", f"cannot read the file ({exc.strerror})") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ProblemError(source, "", f"not valid TOML ({exc}); fix the syntax there") from None
+    return parse_problem(data, source)

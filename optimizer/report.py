@@ -1,0 +1,244 @@
+"""Rich renderings of results: the only module besides the CLI that formats output.
+
+Functions return rich renderables; the CLI decides where they go. Rich drops colour and
+styles by itself when the output is not a terminal, so piped output stays plain.
+"""
+
+from __future__ import annotations
+
+import math
+
+from rich.console import Group
+from rich.table import Table
+from rich.text import Text
+
+from optimizer.designs import DesignResult
+from optimizer.problem import Problem
+
+CAUTION = (
+    "Estimates for comparing options early; real decisions need the foundry's and the "
+    "assembly house's own yield and cost data."
+)
+
+COMPONENT_LABELS = {
+    "silicon": "silicon (wafer cost of the dies)",
+    "interface": "die-to-die interface area",
+    "sort_test": "wafer sort and repair test",
+    "die_scrap": "yield loss: dies failed at sort",
+    "carrier": "substrate or interposer",
+    "assembly": "assembly (bonds and package)",
+    "final_test": "final test",
+    "package_scrap": "yield loss: failed packages (all their dies scrapped)",
+    "nre_per_unit": "one-time costs (NRE) per unit",
+}
+
+
+def money(value: float, currency: str = "") -> str:
+    if not math.isfinite(value):
+        return "inf"
+    sign = "-" if value < 0 else ""
+    value = abs(value)
+    suffix = f" {currency}" if currency else ""
+    if value >= 1e9:
+        return f"{sign}{value / 1e9:,.3f} bn{suffix}"
+    if value >= 1e6:
+        return f"{sign}{value / 1e6:,.2f} M{suffix}"
+    return f"{sign}{value:,.2f}{suffix}"
+
+
+def percent(value: float, digits: int = 2) -> str:
+    return f"{100 * value:.{digits}f}%"
+
+
+def design_breakdown(result: DesignResult) -> Group:
+    """Per-unit cost breakdown, per-die table and the profit summary of one design."""
+    cur = result.currency
+    head = Text.assemble(
+        (f"{result.design}", "bold"),
+        f"  on {result.packaging} ({result.packaging_kind}), {result.n_dies} die(s), "
+        f"package yield {percent(result.package_yield)}",
+    )
+    dies = Table(title="Dies", title_justify="left", show_lines=False)
+    for col in (
+        "die", "process", "copies", "area mm^2", "gross/wafer", "hard yield",
+        "soft yield", "defect level", "cost/passed die",
+    ):
+        dies.add_column(col, justify="left" if col in ("die", "process") else "right")
+    for die in result.dies:
+        dies.add_row(
+            die.name,
+            die.process,
+            str(die.copies),
+            f"{die.area_mm2:.1f}",
+            f"{die.gross_dies_per_wafer:,.0f}",
+            percent(die.hard_yield),
+            percent(die.soft_yield),
+            f"{die.defect_level * 1e6:.0f} ppm",
+            money(die.cost_per_passed_die),
+        )
+    costs = Table(title=f"Cost per good unit ({cur})", title_justify="left")
+    costs.add_column("component")
+    costs.add_column("per unit", justify="right")
+    costs.add_column("share", justify="right")
+    total = result.cost_per_good_unit
+    for name, value in result.breakdown.items():
+        costs.add_row(COMPONENT_LABELS[name], money(value), percent(value / total, 1))
+    costs.add_row(Text("total", style="bold"), Text(money(total), style="bold"), "100.0%")
+    summary = Table.grid(padding=(0, 2))
+    summary.add_column()
+    summary.add_column(justify="right")
+    summary.add_row("unit price", money(result.unit_price, cur))
+    summary.add_row("volume (good units)", f"{result.volume:,.0f}")
+    summary.add_row("manufacturing cost / good unit", money(result.manufacturing_cost_per_good_unit, cur))
+    summary.add_row("NRE (one-time)", money(result.nre, cur))
+    summary.add_row("revenue", money(result.revenue, cur))
+    summary.add_row(Text("profit", style="bold"), Text(money(result.profit, cur), style="bold"))
+    summary.add_row("margin", percent(result.margin, 1))
+    summary.add_row("breakeven volume", f"{result.breakeven_volume:,.0f}")
+    parts: list = [head, dies, costs, summary]
+    for violation in result.violations:
+        parts.append(Text(f"constraint not met: {violation}", style="yellow"))
+    return Group(*parts)
+
+
+def designs_overview(results: list[DesignResult]) -> Table:
+    """One line per design, best profit first."""
+    table = Table(title="Designs by profit", title_justify="left")
+    for col in ("design", "packaging", "dies", "cost/good unit", "package yield", "NRE", "profit", "margin"):
+        table.add_column(col, justify="left" if col in ("design", "packaging") else "right")
+    for r in sorted(results, key=lambda r: -r.profit):
+        table.add_row(
+            r.design, r.packaging, str(r.n_dies), money(r.cost_per_good_unit),
+            percent(r.package_yield), money(r.nre), money(r.profit), percent(r.margin, 1),
+        )
+    return table
+
+
+def problem_summary(problem: Problem, source: str) -> Group:
+    """What the loader understood, in base units."""
+    m = problem.market
+    parts: list = [
+        Text.assemble((problem.title, "bold"), f"  ({source})"),
+        Text(
+            f"market: {m.unit_price:,.2f} {m.currency} per unit, volume {m.volume:,.0f}; "
+            f"die area {problem.constraints.min_die_area_mm2:g} to "
+            f"{problem.constraints.max_die_area_mm2:g} mm^2, at most "
+            f"{problem.constraints.max_dies} dies"
+        ),
+    ]
+    procs = Table(title="Processes (base units)", title_justify="left")
+    for col in ("name", "wafer mm", "edge mm", "scribe mm", "wafer cost", "D /cm^2", "model",
+                "Y0", "reticle mm", "masks", "sort", "coverage"):
+        procs.add_column(col)
+    for p in problem.process:
+        model = p.yield_model
+        if p.clustering_alpha is not None and model == "negative_binomial":
+            model += f" (alpha {p.clustering_alpha:g})"
+        if p.critical_layers is not None and model == "bose_einstein":
+            model += f" ({p.critical_layers} layers)"
+        procs.add_row(
+            p.name, f"{p.wafer_diameter_mm:g}", f"{p.edge_exclusion_mm:g}", f"{p.scribe_width_mm:g}",
+            money(p.wafer_cost), f"{p.defect_density_per_cm2:g}", model, f"{p.systematic_yield:g}",
+            f"{p.reticle_width_mm:g} x {p.reticle_height_mm:g}", money(p.mask_set_cost),
+            money(p.sort_cost_per_die), f"{p.fault_coverage:g}",
+        )
+    packs = Table(title="Packaging (base units)", title_justify="left")
+    for col in ("name", "kind", "max dies", "bond", "bond yield", "carrier", "package",
+                "final test", "GB/s per mm^2", "port mm^2", "design NRE"):
+        packs.add_column(col)
+    for g in problem.packaging:
+        packs.add_row(
+            g.name, g.kind, str(g.max_dies), money(g.bond_cost_per_die), f"{g.bond_yield:g}",
+            money(g.carrier_cost) + (f" + interposer on {g.interposer_process}"
+                                     if g.kind == "silicon_interposer" else ""),
+            money(g.package_cost), money(g.final_test_cost),
+            f"{g.interface_density_gbps_per_mm2:g}" if g.interface_density_gbps_per_mm2 else "-",
+            f"{g.port_area_mm2:g}", money(g.design_cost),
+        )
+    blocks = Table(title="Blocks (base units)", title_justify="left")
+    for col in ("name", "kind", "area mm^2", "count", "sensitivity", "spares", "repair"):
+        blocks.add_column(col)
+    for b in problem.block:
+        repair = (
+            f"f={b.repair.repairable_fraction:g}, choices {b.repair.repair_choices}"
+            if b.repair else "-"
+        )
+        blocks.add_row(b.name, b.kind, f"{b.area_mm2:g}", str(b.count), f"{b.defect_sensitivity:g}",
+                       str(b.spare_choices), repair)
+    links = Table(title="Links", title_justify="left")
+    links.add_column("blocks")
+    links.add_column("GB/s", justify="right")
+    for link in problem.link:
+        links.add_row(" - ".join(link.blocks), f"{link.bandwidth_gbps:g}")
+    parts += [procs, packs, blocks, links]
+    parts.append(Text(
+        f"design cost: {money(problem.design_cost.per_die_design)} per die design + "
+        f"{money(problem.design_cost.per_mm2)} per mm^2; explicit designs: "
+        + (", ".join(d.name for d in problem.design) or "none")
+    ))
+    return Group(*parts)
+
+
+def solution_view(solution) -> Group:
+    """The winner in full, the ranked list, the proof and why the winner wins."""
+    best = solution.best
+    cur = best.currency
+    status = (
+        "proven optimal over the stated choices"
+        if solution.proven_optimal
+        else f"best found; proven profit bound {money(solution.profit_bound, cur)}, "
+        f"gap {percent(solution.gap, 3)}"
+    )
+    parts: list = [
+        Text.assemble(("Most profitable design", "bold"), f"  ({solution.method}, {status}, "
+                      f"{solution.seconds:.2f} s)"),
+        die_contents(best),
+        design_breakdown(best),
+    ]
+    if len(solution.designs) > 1:
+        ranked = Table(title="Ranked designs", title_justify="left")
+        for col in ("rank", "dies", "packaging", "cost/good unit", "profit", "behind best"):
+            ranked.add_column(col, justify="right" if col not in ("dies", "packaging") else "left")
+        for i, d in enumerate(solution.designs, start=1):
+            ranked.add_row(
+                str(i), short_design(d), d.packaging, money(d.cost_per_good_unit),
+                money(d.profit), money(best.profit - d.profit),
+            )
+        parts.append(ranked)
+    if solution.difference:
+        diff = Table(title="Why the winner beats the runner-up (per good unit)", title_justify="left")
+        for col in ("component", "winner", "runner-up", "winner saves"):
+            diff.add_column(col, justify="left" if col == "component" else "right")
+        for row in solution.difference:
+            diff.add_row(COMPONENT_LABELS[row["component"]], money(row["winner"]),
+                         money(row["runner_up"]), money(row["advantage"]))
+        parts.append(diff)
+    return Group(*parts)
+
+
+def short_design(result: DesignResult) -> str:
+    """Compact text: copies x (blocks) @ process, for each die design."""
+    items = []
+    for die in result.dies:
+        blocks = "+".join(f"{n}{'x' + str(c) if c > 1 else ''}" for n, c in die.blocks.items())
+        extra = ""
+        if die.spares:
+            extra += " spares " + ",".join(f"{k}:{v}" for k, v in die.spares.items())
+        if die.repair:
+            extra += " repair " + ",".join(f"{k}:{v}" for k, v in die.repair.items())
+        items.append(f"{die.copies}x[{blocks}]@{die.process}{extra}")
+    return "; ".join(items)
+
+
+def die_contents(result: DesignResult) -> Table:
+    table = Table(title="Die designs", title_justify="left")
+    for col in ("die", "copies", "process", "blocks", "spares / repair"):
+        table.add_column(col)
+    for die in result.dies:
+        options = ", ".join(
+            [f"{k} +{v} spare" for k, v in die.spares.items()]
+            + [f"{k} {v} repairs" for k, v in die.repair.items()]
+        ) or "-"
+        table.add_row(die.name, str(die.copies), die.process,
+                      ", ".join(f"{n} x{c}" for n, c in die.blocks.items()), options)
+    return table

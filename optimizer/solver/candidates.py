@@ -1,0 +1,202 @@
+"""Candidate dies: every admissible die content x process x local options, priced in bulk.
+
+A die content is a vector of block instances (0..count per block). Each content is tried
+on every process with every combination of the spare-unit and array-repair choices of the
+blocks it carries; all of them are priced by the evaluator in one call per packaging
+option (interface area depends on the packaging). Variants of one content that are
+dominated in every respect that matters later (cost per passed die, defect level, NRE,
+area) are dropped: swapping a dominated die for its dominator never makes a design worse.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+
+import numpy as np
+
+from optimizer.evaluator import DieBatch, DiePrices, Evaluator
+
+
+@dataclass(frozen=True)
+class CandidateSet:
+    """Priced, admissible candidate dies for one packaging option."""
+
+    packaging_index: int
+    process: np.ndarray  # (C,)
+    instances: np.ndarray  # (C, B)
+    spares: np.ndarray  # (C, B)
+    repairs: np.ndarray  # (C, B)
+    prices: DiePrices
+    max_copies: np.ndarray  # (C,) most copies of this die one product can hold
+
+    def __len__(self) -> int:
+        return int(self.process.shape[0])
+
+
+def enumerate_contents(evaluator: Evaluator, max_area_mm2: float | None = None) -> np.ndarray:
+    """All block-instance vectors a single die could carry (C x B), smallest area first.
+
+    A content is kept when its block area on the most compact process fits the die-area
+    limit and the keep-together / keep-apart rules hold.
+    """
+    problem = evaluator.problem
+    blocks = evaluator.blocks
+    unit_min = (blocks.area_mm2 * blocks.scale).min(axis=0)  # (B,) most compact process
+    if max_area_mm2 is None:
+        field = max(p.reticle_width_mm * p.reticle_height_mm for p in problem.process)
+        max_area_mm2 = min(problem.constraints.max_die_area_mm2, field)
+    contents = np.zeros((1, 0), dtype=np.int64)
+    area = np.zeros(1)
+    for b in range(blocks.n_blocks):
+        choices = np.arange(blocks.count[b] + 1)
+        contents = np.concatenate(
+            [np.repeat(contents, len(choices), axis=0), np.tile(choices, len(contents))[:, None]],
+            axis=1,
+        )
+        area = np.repeat(area, len(choices)) + np.tile(choices, len(area)) * unit_min[b]
+        keep = area <= max_area_mm2 + 1e-9
+        contents, area = contents[keep], area[keep]
+    nonempty = contents.sum(axis=1) > 0
+    contents, area = contents[nonempty], area[nonempty]
+    index = {name: i for i, name in enumerate(blocks.names)}
+    ok = np.ones(len(contents), dtype=bool)
+    share = contents / blocks.count[None, :]
+    for group in problem.constraints.keep_together:
+        cols = [index[name] for name in group]
+        ok &= np.all(np.isclose(share[:, cols], share[:, cols[:1]]), axis=1)
+    for group in problem.constraints.keep_apart:
+        cols = [index[name] for name in group]
+        ok &= (contents[:, cols] > 0).sum(axis=1) <= 1
+    order = np.argsort(area[ok], kind="stable")
+    return contents[ok][order]
+
+
+def _variants(evaluator: Evaluator, contents: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Expand contents over processes and the local spare / repair choices."""
+    problem = evaluator.problem
+    n_proc = len(problem.process)
+    b_count = evaluator.blocks.n_blocks
+    option_blocks = []  # (block, kind, choices) for blocks with a real choice
+    for b, block in enumerate(problem.block):
+        if len(block.spare_choices) > 1:
+            option_blocks.append((b, "spare", block.spare_choices))
+        if block.repair is not None and len(set(block.repair.repair_choices) | {0}) > 1:
+            option_blocks.append((b, "repair", sorted(set(block.repair.repair_choices) | {0})))
+    combos = list(itertools.product(*[choices for _, _, choices in option_blocks])) or [()]
+    combo_arr = np.array(combos, dtype=np.int64).reshape(len(combos), len(option_blocks))
+    c = len(contents)
+    rows_content = []
+    rows_spare = []
+    rows_repair = []
+    rows_proc = []
+    for k, combo in enumerate(combo_arr):
+        spare = np.zeros((c, b_count), dtype=np.int64)
+        repair = np.zeros((c, b_count), dtype=np.int64)
+        valid = np.ones(c, dtype=bool)
+        for (b, kind, _), value in zip(option_blocks, combo, strict=True):
+            present = contents[:, b] > 0
+            # an option on a block the die does not carry is the same die as option 0
+            valid &= present | (value == 0)
+            (spare if kind == "spare" else repair)[:, b] = np.where(present, value, 0)
+        for p in range(n_proc):
+            rows_content.append(contents[valid])
+            rows_spare.append(spare[valid])
+            rows_repair.append(repair[valid])
+            rows_proc.append(np.full(int(valid.sum()), p, dtype=np.int64))
+    return (
+        np.concatenate(rows_proc),
+        np.concatenate(rows_content),
+        np.concatenate(rows_spare),
+        np.concatenate(rows_repair),
+    )
+
+
+def pareto_keep(group: np.ndarray, metrics: np.ndarray) -> np.ndarray:
+    """Mask of rows not dominated by another row of the same group.
+
+    A row is dominated when another row of its group is no worse in every metric and
+    better in one (exact ties keep the first row).
+    """
+    order = np.argsort(group, kind="stable")
+    g = group[order]
+    starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]])
+    sizes = np.diff(np.r_[starts, len(g)])
+    keep_sorted = np.ones(len(g), dtype=bool)
+    m = metrics[order]
+    big = sizes > 1
+    for start, size in zip(starts[big], sizes[big], strict=True):
+        block = m[start : start + size]
+        le = np.all(block[None, :, :] <= block[:, None, :], axis=2)  # le[i, j]: j <= i
+        lt = np.any(block[None, :, :] < block[:, None, :], axis=2)
+        idx = np.arange(size)
+        tie_first = np.all(block[None, :, :] == block[:, None, :], axis=2) & (idx[None, :] < idx[:, None])
+        dominated = ((le & lt) | tie_first).any(axis=1)
+        keep_sorted[start : start + size] = ~dominated
+    keep = np.empty(len(g), dtype=bool)
+    keep[order] = keep_sorted
+    return keep
+
+
+def build_candidates(
+    evaluator: Evaluator,
+    packaging_index: int,
+    contents: np.ndarray | None = None,
+    prune: bool = True,
+) -> CandidateSet:
+    """Price every admissible candidate die for one packaging option.
+
+    With ``prune`` (the solver's default) dominated variants of a content are dropped;
+    the exhaustive reference keeps them all.
+    """
+    problem = evaluator.problem
+    packaging = problem.packaging[packaging_index]
+    blocks = evaluator.blocks
+    if contents is None:
+        contents = enumerate_contents(evaluator)
+    if packaging.kind == "single_die":
+        contents = contents[np.all(contents == blocks.count[None, :], axis=1)]
+    process, inst, spare, repair = _variants(evaluator, contents)
+    batch = DieBatch(
+        process=process,
+        instances=inst,
+        spares=spare,
+        repairs=repair,
+        interface_area_mm2=evaluator.interface_area_mm2(inst, packaging),
+    )
+    prices = evaluator.price_dies(batch)
+    limits = problem.constraints
+    ok = (
+        prices.fits_reticle
+        & (prices.gross_dies_per_wafer > 0)
+        & np.isfinite(prices.cost_per_passed_die)
+        & (prices.area_mm2 >= limits.min_die_area_mm2 - 1e-9)
+        & (prices.area_mm2 <= limits.max_die_area_mm2 + 1e-9)
+    )
+    idx = np.flatnonzero(ok)
+    # group by content; dominance over local options and processes of the same content
+    _, group = np.unique(inst[idx], axis=0, return_inverse=True)
+    metrics = np.column_stack(
+        [
+            prices.cost_per_passed_die[idx],
+            -prices.log1m_defect_level[idx],
+            prices.nre[idx],
+            prices.area_mm2[idx],
+        ]
+    )
+    if prune:
+        idx = idx[pareto_keep(group.ravel(), metrics)]
+    inst_k = inst[idx]
+    with np.errstate(divide="ignore"):
+        per_block = np.where(inst_k > 0, blocks.count[None, :] // np.maximum(inst_k, 1), np.iinfo(np.int64).max)
+    cap = min(packaging.max_dies, limits.max_dies)
+    max_copies = np.minimum(per_block.min(axis=1), cap)
+    return CandidateSet(
+        packaging_index=packaging_index,
+        process=process[idx],
+        instances=inst_k,
+        spares=spare[idx],
+        repairs=repair[idx],
+        prices=prices.take(idx),
+        max_copies=max_copies,
+    )

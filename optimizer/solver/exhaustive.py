@@ -1,0 +1,151 @@
+"""Brute-force reference: every partition of the blocks, every option, every packaging.
+
+Enumerates every multiset partition of the block instances into admissible die contents
+(at most the packaging's die limit), every assignment of a process and local options to
+each die (identical contents may take the same variant, then they are one die design
+with several copies), and every packaging option, and prices all of them with the
+evaluator in vectorised batches. No pruning by dominance: it is the independent check of
+the solver, practical for about eight blocks.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+import time
+from collections.abc import Iterator
+
+import numpy as np
+
+from optimizer.evaluator import Evaluator
+from optimizer.solver.candidates import CandidateSet, build_candidates, enumerate_contents
+from optimizer.solver.search import RankedSelection, SearchOutcome
+from optimizer.solver.selection import Selection
+
+CHUNK = 200_000
+
+
+def multiset_partitions(
+    total: tuple[int, ...], parts: list[tuple[int, ...]], max_parts: int
+) -> Iterator[list[tuple[int, ...]]]:
+    """Partitions of the count vector ``total`` into allowed ``parts`` (each multiset once).
+
+    Parts are produced in non-increasing lexicographic order, which makes every
+    multiset of parts appear exactly once.
+    """
+    allowed = sorted(set(parts), reverse=True)
+
+    def rec(remaining: tuple[int, ...], ceiling: tuple[int, ...], chosen: list):
+        if not any(remaining):
+            yield list(chosen)
+            return
+        if len(chosen) == max_parts:
+            return
+        for part in allowed:
+            if part > ceiling:
+                continue
+            if all(p <= r for p, r in zip(part, remaining, strict=True)):
+                chosen.append(part)
+                yield from rec(tuple(r - p for r, p in zip(remaining, part, strict=True)), part, chosen)
+                chosen.pop()
+
+    yield from rec(tuple(total), tuple(total), [])
+
+
+def _assignments(groups: list[tuple[np.ndarray, int]]) -> np.ndarray:
+    """All variant choices for parts grouped by identical content (rows x parts)."""
+    per_group = [
+        np.array(list(itertools.combinations_with_replacement(variants, mult)), dtype=np.int64)
+        for variants, mult in groups
+    ]
+    rows = per_group[0]
+    for nxt in per_group[1:]:
+        rows = np.concatenate(
+            [np.repeat(rows, len(nxt), axis=0), np.tile(nxt, (len(rows), 1))], axis=1
+        )
+    return rows
+
+
+def _slots(assign: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Merge repeated variants of a row into one slot with copies (NRE paid once)."""
+    srt = np.sort(assign, axis=1)
+    same_as_prev = np.zeros(srt.shape, dtype=bool)
+    same_as_prev[:, 1:] = srt[:, 1:] == srt[:, :-1]
+    head = np.arange(srt.shape[1])[None, :].repeat(srt.shape[0], axis=0)
+    for j in range(1, srt.shape[1]):
+        head[:, j] = np.where(same_as_prev[:, j], head[:, j - 1], j)
+    copies = np.zeros(srt.shape, dtype=np.int64)
+    rows = np.repeat(np.arange(srt.shape[0]), srt.shape[1])
+    np.add.at(copies, (rows, head.ravel()), 1)
+    return srt, copies
+
+
+def exhaustive_search(evaluator: Evaluator, top: int = 1) -> SearchOutcome:
+    """Price every complete design and return the ``top`` best (exact, no proof needed)."""
+    start = time.perf_counter()
+    problem = evaluator.problem
+    market = problem.market
+    revenue = market.unit_price * market.volume
+    contents = enumerate_contents(evaluator)
+    total = tuple(int(x) for x in evaluator.blocks.count)
+    best: list[tuple[float, Selection]] = []
+    candidates: dict[int, CandidateSet] = {}
+    designs = 0
+    for g, packaging in enumerate(problem.packaging):
+        cset = build_candidates(evaluator, g, contents, prune=False)
+        candidates[g] = cset
+        if len(cset) == 0:
+            continue
+        keys = [tuple(int(v) for v in row) for row in cset.instances]
+        variants: dict[tuple, list[int]] = {}
+        for i, key in enumerate(keys):
+            variants.setdefault(key, []).append(i)
+        n_max = min(packaging.max_dies, problem.constraints.max_dies)
+        buffers: dict[int, list[np.ndarray]] = {}
+
+        def flush(width: int) -> None:
+            nonlocal designs
+            rows = np.concatenate(buffers.pop(width))
+            designs += len(rows)
+            slot_die, slot_copies = _slots(rows)
+            product = evaluator.assemble(g, cset.prices, slot_die, slot_copies)
+            cost = market.volume * product.manufacturing_cost_per_good_unit + product.nre
+            cost = np.where(product.carrier_feasible, cost, np.inf)
+            take = np.argsort(cost)[:top]
+            for i in take:
+                if math.isfinite(cost[i]):
+                    pairs = [(c, k) for c, k in zip(slot_die[i], slot_copies[i], strict=True) if k]
+                    best.append((float(cost[i]), Selection.of(g, pairs)))
+
+        for partition in multiset_partitions(total, list(variants), n_max):
+            groups = [
+                (np.array(variants[key]), mult)
+                for key, mult in _group_counts(partition)
+            ]
+            rows = _assignments(groups)
+            width = rows.shape[1]
+            buffers.setdefault(width, []).append(rows)
+            if sum(len(r) for r in buffers[width]) >= CHUNK:
+                flush(width)
+        for width in list(buffers):
+            flush(width)
+    best.sort(key=lambda item: (item[0], item[1]))
+    ranked = [RankedSelection(sel, cost, revenue - cost) for cost, sel in best[:top]]
+    bound = ranked[0].total_cost if ranked else math.inf
+    return SearchOutcome(
+        ranked=ranked,
+        candidates=candidates,
+        bound_total_cost=bound,
+        proven=True,
+        method="exhaustive",
+        seconds=time.perf_counter() - start,
+        log=[f"priced {designs} complete designs"],
+        stats={"designs_priced": designs},
+    )
+
+
+def _group_counts(partition: list[tuple[int, ...]]) -> list[tuple[tuple[int, ...], int]]:
+    counts: dict[tuple[int, ...], int] = {}
+    for part in partition:
+        counts[part] = counts.get(part, 0) + 1
+    return list(counts.items())

@@ -1,0 +1,168 @@
+"""The proof loop: bound with the integer programs, price exactly, cut, repeat.
+
+For every packaging option g and die count n a lower-bounding integer program is solved;
+each selection it returns is priced exactly by the evaluator. While some program's bound
+is below the K-th best exact total cost, its current selection is cut off and it is
+solved again. When no program is open, the K best designs are proven; with a time limit
+the best found is returned with the proven bound and the gap.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from optimizer.evaluator import Evaluator
+from optimizer.solver.candidates import CandidateSet, build_candidates, enumerate_contents
+from optimizer.solver.milp import SubProblem, build_subproblem, cut_current, solve_round
+from optimizer.solver.selection import Selection, price_selections
+
+REL_TOL = 1e-9
+
+
+@dataclass(frozen=True)
+class RankedSelection:
+    selection: Selection
+    total_cost: float  # volume x cost per good unit + NRE (exact)
+    profit: float
+
+
+@dataclass
+class SearchOutcome:
+    """What a search found and what it proved."""
+
+    ranked: list[RankedSelection]
+    candidates: dict[int, CandidateSet]
+    bound_total_cost: float  # no design costs less than this
+    proven: bool
+    method: str
+    seconds: float
+    log: list[str] = field(default_factory=list)
+    stats: dict = field(default_factory=dict)
+
+
+def _kth(values: list[float], k: int) -> float:
+    return sorted(values)[k - 1] if len(values) >= k else math.inf
+
+
+def milp_search(
+    evaluator: Evaluator, top: int = 1, time_limit: float | None = None
+) -> SearchOutcome:
+    """Proven top-``top`` designs by integer programming with exact verification."""
+    start = time.perf_counter()
+    problem = evaluator.problem
+    market = problem.market
+    revenue = market.unit_price * market.volume
+    log: list[str] = []
+    contents = enumerate_contents(evaluator)
+    candidates: dict[int, CandidateSet] = {}
+    subs: list[SubProblem] = []
+    for g, packaging in enumerate(problem.packaging):
+        cset = build_candidates(evaluator, g, contents)
+        candidates[g] = cset
+        log.append(f"packaging {packaging.name}: {len(cset)} candidate dies after pruning")
+        n_max = min(packaging.max_dies, problem.constraints.max_dies)
+        for n in range(1, n_max + 1):
+            sub = build_subproblem(evaluator, cset, n)
+            if sub is not None:
+                subs.append(sub)
+    log.append(f"built {len(subs)} programs in {time.perf_counter() - start:.2f} s")
+
+    exact: dict[Selection, float] = {}
+
+    def price(sub: SubProblem) -> None:
+        sel = sub.current
+        if sel is None or sel in exact:
+            return
+        prices = price_selections(evaluator, candidates[sel.packaging_index], [sel])
+        feasible = bool(prices.carrier_feasible[0])
+        total = market.volume * float(prices.manufacturing_cost_per_good_unit[0]) + float(
+            prices.nre[0]
+        )
+        exact[sel] = total if feasible else math.inf
+
+    def remaining() -> float | None:
+        return None if time_limit is None else time_limit - (time.perf_counter() - start)
+
+    timed_out = False
+    for sub in subs:
+        left = remaining()
+        if left is not None and left <= 0:
+            timed_out = True
+            break
+        solve_round(sub, left)
+        price(sub)
+    while not timed_out:
+        threshold = _kth(list(exact.values()), top)
+        open_subs = [
+            s for s in subs if not s.exhausted and s.bound < threshold * (1 - REL_TOL) - 1e-9
+        ]
+        if not open_subs:
+            break
+        sub = min(open_subs, key=lambda s: s.bound)
+        if sub.current is None and sub.rounds > 0 and sub.bound > -math.inf:
+            pass
+        if sub.current is not None:
+            cut_current(sub)
+        left = remaining()
+        if left is not None and left <= 0:
+            timed_out = True
+            break
+        solve_round(sub, left)
+        price(sub)
+    ranked_items = sorted(
+        ((sel, total) for sel, total in exact.items() if math.isfinite(total)),
+        key=lambda item: (item[1], item[0]),
+    )[:top]
+    ranked = [RankedSelection(sel, total, revenue - total) for sel, total in ranked_items]
+    open_bounds = [s.bound for s in subs if not s.exhausted]
+    best = ranked[0].total_cost if ranked else math.inf
+    bound = min([best, *open_bounds]) if open_bounds else best
+    proven = not timed_out and all(
+        s.exhausted or s.bound >= _kth(list(exact.values()), top) * (1 - REL_TOL) - 1e-9
+        for s in subs
+    )
+    for s in subs:
+        log.extend(
+            f"[{problem.packaging[s.packaging_index].name}, {s.n_dies} dies] {line}"
+            for line in s.log
+        )
+    stats = {
+        "programs": len(subs),
+        "rounds": sum(s.rounds for s in subs),
+        "cuts": sum(s.cuts for s in subs),
+        "designs_priced": len(exact),
+        "candidate_dies": int(sum(len(c) for c in candidates.values())),
+        "milp_seconds": float(sum(s.seconds for s in subs)),
+    }
+    return SearchOutcome(
+        ranked=ranked,
+        candidates=candidates,
+        bound_total_cost=bound,
+        proven=proven,
+        method="milp",
+        seconds=time.perf_counter() - start,
+        log=log,
+        stats=stats,
+    )
+
+
+def profit_bound(outcome: SearchOutcome, evaluator: Evaluator) -> float:
+    market = evaluator.problem.market
+    return market.unit_price * market.volume - outcome.bound_total_cost
+
+
+def relative_gap(outcome: SearchOutcome, evaluator: Evaluator) -> float:
+    """Gap between the best profit found and the proven profit bound, relative."""
+    if not outcome.ranked:
+        return math.inf
+    best = outcome.ranked[0].profit
+    bound = profit_bound(outcome, evaluator)
+    return max(0.0, (bound - best) / max(abs(best), 1e-12))
+
+
+def selections_equal_cost(a: float, b: float) -> bool:
+    return bool(np.isclose(a, b, rtol=1e-9, atol=1e-6))

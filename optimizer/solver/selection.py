@@ -1,0 +1,73 @@
+"""A selection: how many copies of which candidate dies, on one packaging option.
+
+Selections are what the solver and the exhaustive reference produce; both price them
+through the same evaluator call so that their figures are the evaluator's.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from optimizer.designs import DieSpec
+from optimizer.evaluator import Evaluator, ProductPrices
+from optimizer.solver.candidates import CandidateSet
+
+
+@dataclass(frozen=True, order=True)
+class Selection:
+    """Copies of candidate dies (indices into one packaging's CandidateSet)."""
+
+    packaging_index: int
+    dies: tuple[tuple[int, int], ...]  # (candidate index, copies), sorted by index
+
+    @staticmethod
+    def of(packaging_index: int, pairs) -> Selection:
+        merged: dict[int, int] = {}
+        for c, k in pairs:
+            merged[int(c)] = merged.get(int(c), 0) + int(k)
+        return Selection(packaging_index, tuple(sorted(merged.items())))
+
+    @property
+    def n_dies(self) -> int:
+        return sum(k for _, k in self.dies)
+
+
+def price_selections(
+    evaluator: Evaluator, candidates: CandidateSet, selections: list[Selection]
+) -> ProductPrices:
+    """Exact product prices of many selections on the same packaging option."""
+    width = max(len(s.dies) for s in selections)
+    slot_die = np.zeros((len(selections), width), dtype=np.int64)
+    slot_copies = np.zeros((len(selections), width), dtype=np.int64)
+    for i, s in enumerate(selections):
+        for j, (c, k) in enumerate(s.dies):
+            slot_die[i, j] = c
+            slot_copies[i, j] = k
+    return evaluator.assemble(candidates.packaging_index, candidates.prices, slot_die, slot_copies)
+
+
+def selection_specs(
+    evaluator: Evaluator, candidates: CandidateSet, selection: Selection
+) -> list[DieSpec]:
+    """Die specs (by block name) of a selection, named after their main contents."""
+    problem = evaluator.problem
+    names = evaluator.blocks.names
+    specs = []
+    for j, (c, k) in enumerate(selection.dies):
+        inst = candidates.instances[c]
+        blocks = {names[b]: int(inst[b]) for b in np.flatnonzero(inst)}
+        spares = {names[b]: int(candidates.spares[c, b]) for b in np.flatnonzero(candidates.spares[c])}
+        repair = {names[b]: int(candidates.repairs[c, b]) for b in np.flatnonzero(candidates.repairs[c])}
+        specs.append(
+            DieSpec(
+                process=problem.process[int(candidates.process[c])].name,
+                blocks=blocks,
+                spares=spares,
+                repair=repair,
+                copies=int(k),
+                name=f"die{j + 1}",
+            )
+        )
+    return specs

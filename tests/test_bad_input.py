@@ -1,0 +1,87 @@
+"""Bad input: one clear line naming file, field and fix; exit code 2; no traceback.
+
+Each case edits one field of the tiny fixture problem.
+"""
+
+from __future__ import annotations
+
+import pytest
+from typer.testing import CliRunner
+
+from optimizer.cli import app
+from tests.conftest import TINY_PROBLEM
+
+runner = CliRunner()
+
+CASES = [
+    # (id, edits, words the message must contain)
+    ("malformed_toml", [("unit_price = 500.0", "unit_price = = 500")], ["not valid TOML"]),
+    ("missing_field", [('wafer_cost = 10000.0\n', "")], ["process[fast].wafer_cost", "missing"]),
+    (
+        "wrong_dimension",
+        [('defect_density = "0.1 /cm^2"', 'defect_density = "0.1 mm"')],
+        ["process[fast].defect_density", "wrong dimension"],
+    ),
+    ("no_unit", [('area = "40 mm^2"', 'area = "40"')], ["block[io].area", "no unit"]),
+    ("negative_area", [('area = "40 mm^2"', 'area = "-40 mm^2"')], ["block[io].area", "positive"]),
+    (
+        "unknown_block_in_design",
+        [("blocks = { io = 1 }", "blocks = { io = 1, gpu = 1 }")],
+        ["design[split].die[hub].blocks.gpu", "unknown block"],
+    ),
+    (
+        "unknown_process_in_design",
+        [('process = "cheap"\nblocks', 'process = "tiny"\nblocks')],
+        ["design[split].die[hub].process", "unknown process 'tiny'"],
+    ),
+    (
+        "block_on_no_die",
+        [("blocks = { io = 1 }", "blocks = { compute = 0 }")],
+        ["design[split]"],
+    ),
+    (
+        "block_placed_twice",
+        [("copies = 2\nblocks = { compute = 1 }", "copies = 2\nblocks = { compute = 1, io = 1 }")],
+        ["design[split].die", "'io' is placed 3 times"],
+    ),
+    (
+        "die_over_reticle",
+        [('area = "150 mm^2"', 'area = "500 mm^2"')],
+        ["design[mono].die", "reticle field"],
+    ),
+    ("unknown_field", [("package_cost = 10.0\nfinal", "package_cost = 10.0\ncolour = 1\nfinal")],
+     ["packaging[single].colour", "not a known field"]),
+    (
+        "unknown_yield_model",
+        [('yield_model = "poisson"', 'yield_model = "gaussian"')],
+        ["process[cheap].yield_model"],
+    ),
+]
+
+
+@pytest.mark.parametrize("case_id, edits, words", CASES, ids=[c[0] for c in CASES])
+@pytest.mark.parametrize("command", ["check", "evaluate"])
+def test_bad_input_one_line_exit_2(write_problem, tmp_path, case_id, edits, words, command):
+    path = write_problem(TINY_PROBLEM, *edits)
+    result = runner.invoke(app, [command, str(path)])
+    assert result.exit_code == 2, result.output
+    message = result.stderr.strip()
+    assert "\n" not in message, message
+    assert "Traceback" not in result.output
+    assert message.startswith(f"dieplan: {path}"), message
+    for word in words:
+        assert word in message, message
+
+
+def test_missing_file_exit_2(tmp_path):
+    result = runner.invoke(app, ["check", str(tmp_path / "nope.toml")])
+    assert result.exit_code == 2
+    assert "file not found" in result.stderr
+
+
+def test_solve_writes_nothing_on_bad_input(write_problem, tmp_path):
+    path = write_problem(TINY_PROBLEM, ('defect_density = "0.1 /cm^2"', 'defect_density = "x"'))
+    out = tmp_path / "results"
+    result = runner.invoke(app, ["solve", str(path), "--results", str(out)])
+    assert result.exit_code == 2
+    assert not out.exists() or not any(out.iterdir())
