@@ -181,7 +181,8 @@ class Evaluator:
         complex_rows = np.flatnonzero(~simple)
         if complex_rows.size:
             qc, sc, rc = q[complex_rows], s[complex_rows], r[complex_rows]
-            red_blocks = np.flatnonzero(redundant[complex_rows].any(axis=0))
+            red_rows = redundant[complex_rows]
+            red_blocks = np.flatnonzero(red_rows.any(axis=0))
             fraction = blocks.repairable_fraction
 
             def log_factor(d: np.ndarray) -> np.ndarray:
@@ -199,7 +200,9 @@ class Evaluator:
                         -a * d,
                     )
                     # a unit of yield y behaves as one with exp(-a D) = y, i.e. a D = -log y
-                    total += redundancy.log_spare_unit_factor(-log_unit, 1.0, needed, spare)
+                    factor_b = redundancy.log_spare_unit_factor(-log_unit, 1.0, needed, spare)
+                    # blocks without redundancy on this die are already in the plain area
+                    total += np.where(red_rows[:, b][:, None], factor_b, 0.0)
                 return total
 
             log_y[complex_rows] = defect_mixture.log_mixed_yield(

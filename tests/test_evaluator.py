@@ -220,3 +220,20 @@ def test_demo_problems_evaluate():
             assert math.isfinite(r.profit)
             assert 0 < r.package_yield <= 1
             assert_allclose(sum(r.breakdown.values()), r.cost_per_good_unit, rtol=1e-12)
+
+
+def test_batch_pricing_equals_one_at_a_time():
+    # Vector equals scalar loop: a die's price never depends on the other dies priced with it.
+    from optimizer.designs import die_batch
+    from optimizer.solver.candidates import build_candidates
+    from optimizer.solver.selection import Selection, selection_specs
+
+    problem = load_problem("problems/edge_accelerator.toml")
+    ev = Evaluator(problem)
+    cset = build_candidates(ev, 1, prune=False)
+    rng = np.random.default_rng(7)
+    for i in rng.choice(len(cset), size=25, replace=False):
+        specs = selection_specs(ev, cset, Selection.of(1, [(i, 1)]))
+        alone = ev.price_dies(die_batch(ev, specs, 1))
+        for name in ("die_yield", "defect_level", "cost_per_passed_die", "area_mm2", "nre"):
+            assert_allclose(getattr(alone, name)[0], getattr(cset.prices, name)[i], rtol=1e-12)

@@ -10,9 +10,12 @@ The quadrature is built on the *tilted* distribution, proportional to
 ``exp(-A_t D) f(D)``, whose normaliser ``E_D[exp(-A_t D)]`` is the model's closed form.
 With ``A_t = A`` the plain-area part is integrated exactly and only ``r`` is left to the
 nodes. A redundancy factor usually falls with D, so the mass of the integrand sits at
-lower D than the plain tilt suggests; the tilt is therefore raised by the average slope
-of ``-log r`` where the integrand lives (a few refinement passes). When ``r`` is an
-exponential the result is then exact.
+lower D than the plain tilt suggests; a few refinement passes raise the tilt until the
+tilted distribution has the integrand's mean (gamma and Levy mixtures) or by the
+average slope of ``-log r`` (Murphy's bounded triangle), never past the rate at which
+``r`` itself decays far out. When ``r`` is an exponential the result is then exact.
+Factors with sharp steps (many spares or repairs falling due near the typical density)
+need more nodes.
 """
 
 from __future__ import annotations
@@ -50,7 +53,6 @@ _MAX_PASSES = 4
 _TILT_TOLERANCE = 1e-3
 # Densities, in multiples of the typical one, where the factor's decay rate is read.
 _PROBE_MULTIPLES = np.array([1e8, 2e8])
-MODE = "moment"
 
 
 class _Rule(NamedTuple):
@@ -300,6 +302,7 @@ def log_mixed_yield(
         Number of critical layers [-], > 0, required for "bose_einstein".
     n_nodes : int
         Quadrature nodes [-]; "murphy" and "sqrt_exponential" use twice as many points.
+        Raise it for factors that drop sharply near the typical density.
 
     Returns
     -------
@@ -325,7 +328,10 @@ def log_mixed_yield(
     Gauss-Laguerre, :math:`D_k = D_0 s_k / (\\alpha + A_t D_0)`. Murphy: Gauss-Legendre
     on both linear pieces of the triangle. Levy: Gauss-Laguerre over the chi-square
     variable of the tilted (inverse Gaussian) law. Poisson: ``r(D0)``. The tilt starts
-    at ``A`` and is raised by the mass-weighted slope of ``-log r``.
+    at ``A``; each further pass (at most four factor calls, plus one that reads the
+    decay rate of ``r`` at very high D) moves it so that the tilted distribution's mean
+    matches the integrand's (gamma, Levy) or adds the mass-weighted slope of
+    ``-log r`` (Murphy), capped by the far-out decay rate of ``r``.
 
     References
     ----------
@@ -351,51 +357,11 @@ def log_mixed_yield(
     if factor is None:
         return _result(_closed_form(model, density, area, alpha, layers))
 
-    if model in ("negative_binomial", "exponential", "bose_einstein"):
-        if model == "exponential":
-            shape = np.ones_like(density)
-            mean_density = density
-        elif model == "negative_binomial":
-            shape = np.broadcast_to(alpha, np.broadcast_shapes(alpha.shape, density.shape))
-            mean_density = density
-        else:
-            shape = np.broadcast_to(layers, np.broadcast_shapes(layers.shape, density.shape))
-            mean_density = layers * density
-
-        def rule(tilt: np.ndarray) -> _Rule:
-            full = np.broadcast_shapes(shape.shape, np.shape(tilt))
-            return _gamma_rule(np.broadcast_to(shape, full), mean_density, tilt, n_nodes)
-
-        def tilt_for_mean(target: np.ndarray) -> np.ndarray:
-            # Tilted gamma mean is alpha / (alpha / D0 + A_t).
-            with np.errstate(divide="ignore", invalid="ignore"):
-                return np.where(np.isinf(shape), 0.0, shape / target - shape / mean_density)
-
-    elif model == "murphy":
-
-        def rule(tilt: np.ndarray) -> _Rule:
-            return _murphy_rule(density, tilt, n_nodes)
-
-    elif model == "sqrt_exponential":
-
-        def rule(tilt: np.ndarray) -> _Rule:
-            return _sqrt_exponential_rule(density, tilt, n_nodes)
-
-        def tilt_for_mean(target: np.ndarray) -> np.ndarray:
-            # Tilted Levy (inverse Gaussian) mean is D0 / (2 sqrt(A_t D0)).
-            with np.errstate(divide="ignore", invalid="ignore"):
-                return density / (4 * target * target)
-
-    else:
-
-        def rule(tilt: np.ndarray) -> _Rule:
-            return _poisson_rule(density, tilt)
-
-    scale = _density_scale(model, density, layers)
-    cap = None
+    mixture = _build_mixture(model, density, alpha, layers, n_nodes)
     extra_tilt = np.zeros(np.broadcast_shapes(density.shape, area.shape))
+    cap = None
     for attempt in range(_MAX_PASSES):
-        log_norm, densities, log_w = rule(area + extra_tilt)
+        log_norm, densities, log_w = mixture.rule(area + extra_tilt)
         log_r = np.asarray(factor(densities), dtype=float)
         with np.errstate(invalid="ignore"):
             # Undo the extra tilt inside the sum; r = 0 stays a zero term.
@@ -406,28 +372,88 @@ def log_mixed_yield(
         log_yield = log_norm + logsumexp(log_terms, axis=-1)
         if model == "poisson" or attempt == _MAX_PASSES - 1:
             break
-        if MODE == "slope" or model in ("murphy",):
+        if mixture.tilt_for_mean is None:
             new_tilt = _average_slope(densities, log_r, log_terms)
         else:
-            target = _mass_mean(densities, log_terms)
-            wanted = tilt_for_mean(target) - area
             if cap is None:
-                cap = _asymptotic_slope(factor, scale)
-            new_tilt = np.where(np.isfinite(wanted) & (target > 0), np.minimum(wanted, cap), 0.0)
-            new_tilt = np.maximum(new_tilt, 0.0)
+                cap = _asymptotic_slope(factor, mixture.scale)
+            target = _mass_mean(densities, log_terms)
+            with np.errstate(invalid="ignore"):
+                wanted = mixture.tilt_for_mean(target) - area
+                usable = np.isfinite(wanted) & (target > 0)
+                new_tilt = np.maximum(np.where(usable, np.minimum(wanted, cap), 0.0), 0.0)
         # Judge the change in mean defects per die, which is what the nodes feel.
-        settled = bool(np.all(np.abs(new_tilt - extra_tilt) * scale <= _TILT_TOLERANCE))
+        settled = bool(
+            np.all(np.abs(new_tilt - extra_tilt) * mixture.scale <= _TILT_TOLERANCE)
+        )
         extra_tilt = new_tilt
         if settled:
             break
     return _result(log_yield)
 
 
-def _density_scale(model: str, density: np.ndarray, layers: np.ndarray | None) -> np.ndarray:
-    """Typical density [1/cm^2] used to judge when the tilt has settled."""
-    if model == "bose_einstein" and layers is not None:
-        return layers * density
-    return density
+class _Mixture(NamedTuple):
+    rule: Callable[[np.ndarray], _Rule]
+    # Total tilt A_t [cm^2] whose tilted distribution has a given mean; None: use slopes.
+    tilt_for_mean: Callable[[np.ndarray], np.ndarray] | None
+    scale: np.ndarray  # typical density [1/cm^2]
+
+
+def _build_mixture(
+    model: str,
+    density: np.ndarray,
+    alpha: np.ndarray | None,
+    layers: np.ndarray | None,
+    n_nodes: int,
+) -> _Mixture:
+    if model in ("negative_binomial", "exponential", "bose_einstein"):
+        if model == "exponential":
+            shape = np.ones_like(density)
+            mean_density = density
+        elif model == "negative_binomial":
+            assert alpha is not None
+            shape = np.broadcast_to(alpha, np.broadcast_shapes(alpha.shape, density.shape))
+            mean_density = density
+        else:
+            assert layers is not None
+            shape = np.broadcast_to(layers, np.broadcast_shapes(layers.shape, density.shape))
+            mean_density = layers * density
+
+        def gamma_rule(tilt: np.ndarray) -> _Rule:
+            full = np.broadcast_shapes(shape.shape, np.shape(tilt))
+            return _gamma_rule(np.broadcast_to(shape, full), mean_density, tilt, n_nodes)
+
+        def gamma_tilt(mean: np.ndarray) -> np.ndarray:
+            # Tilted gamma mean: alpha / (alpha / D0 + A_t).
+            with np.errstate(divide="ignore", invalid="ignore"):
+                return np.where(np.isinf(shape), 0.0, shape / mean - shape / mean_density)
+
+        return _Mixture(gamma_rule, gamma_tilt, np.asarray(mean_density))
+
+    if model == "sqrt_exponential":
+
+        def levy_rule(tilt: np.ndarray) -> _Rule:
+            return _sqrt_exponential_rule(density, tilt, n_nodes)
+
+        def levy_tilt(mean: np.ndarray) -> np.ndarray:
+            # Tilted Levy (inverse Gaussian) mean: D0 / (2 sqrt(A_t D0)).
+            with np.errstate(divide="ignore", invalid="ignore"):
+                return density / (4 * mean * mean)
+
+        return _Mixture(levy_rule, levy_tilt, density)
+
+    if model == "murphy":
+
+        def murphy_rule(tilt: np.ndarray) -> _Rule:
+            return _murphy_rule(density, tilt, n_nodes)
+
+        # Bounded support: no tail to protect, the slope of log r is enough.
+        return _Mixture(murphy_rule, None, density)
+
+    def poisson_rule(tilt: np.ndarray) -> _Rule:
+        return _poisson_rule(density, tilt)
+
+    return _Mixture(poisson_rule, None, density)
 
 
 def mixed_yield(

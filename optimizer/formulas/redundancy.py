@@ -112,7 +112,8 @@ def log_spare_unit_factor(
 
     # bdtrc(s, N, q): P(more than s of N units bad), accurate when small.
     failure = bdtrc(spare, total, -np.expm1(-unit_defects))
-    return _result(np.where(failure < 0.5, np.log1p(-failure), log_ok))
+    with np.errstate(divide="ignore"):
+        return _result(np.where(failure < 0.5, np.log1p(-failure), log_ok))
 
 
 def spare_unit_factor(

@@ -112,11 +112,13 @@ def _variants(evaluator: Evaluator, contents: np.ndarray) -> tuple[np.ndarray, .
     )
 
 
-def pareto_keep(group: np.ndarray, metrics: np.ndarray) -> np.ndarray:
-    """Mask of rows not dominated by another row of the same group.
+def pareto_keep(group: np.ndarray, metrics: np.ndarray, depth: int = 1) -> np.ndarray:
+    """Mask of rows dominated by fewer than ``depth`` other rows of the same group.
 
-    A row is dominated when another row of its group is no worse in every metric and
-    better in one (exact ties keep the first row).
+    A row is dominated by another row of its group that is no worse in every metric and
+    better in one (of exact ties the first row dominates). A die dominated by K others
+    can be in no top-K design: each swap for a dominator gives a distinct design that is
+    no worse.
     """
     order = np.argsort(group, kind="stable")
     g = group[order]
@@ -131,8 +133,8 @@ def pareto_keep(group: np.ndarray, metrics: np.ndarray) -> np.ndarray:
         lt = np.any(block[None, :, :] < block[:, None, :], axis=2)
         idx = np.arange(size)
         tie_first = np.all(block[None, :, :] == block[:, None, :], axis=2) & (idx[None, :] < idx[:, None])
-        dominated = ((le & lt) | tie_first).any(axis=1)
-        keep_sorted[start : start + size] = ~dominated
+        dominators = ((le & lt) | tie_first).sum(axis=1)
+        keep_sorted[start : start + size] = dominators < depth
     keep = np.empty(len(g), dtype=bool)
     keep[order] = keep_sorted
     return keep
@@ -143,11 +145,13 @@ def build_candidates(
     packaging_index: int,
     contents: np.ndarray | None = None,
     prune: bool = True,
+    depth: int = 1,
 ) -> CandidateSet:
     """Price every admissible candidate die for one packaging option.
 
-    With ``prune`` (the solver's default) dominated variants of a content are dropped;
-    the exhaustive reference keeps them all.
+    With ``prune`` (the solver's default) variants of a content dominated by ``depth``
+    others (the number of ranked designs wanted) are dropped; the exhaustive reference
+    keeps them all.
     """
     problem = evaluator.problem
     packaging = problem.packaging[packaging_index]
@@ -185,7 +189,7 @@ def build_candidates(
         ]
     )
     if prune:
-        idx = idx[pareto_keep(group.ravel(), metrics)]
+        idx = idx[pareto_keep(group.ravel(), metrics, depth)]
     inst_k = inst[idx]
     with np.errstate(divide="ignore"):
         per_block = np.where(inst_k > 0, blocks.count[None, :] // np.maximum(inst_k, 1), np.iinfo(np.int64).max)

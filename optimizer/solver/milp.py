@@ -9,14 +9,18 @@ cost per good unit is
 
 (k_c cost per passed die, DL_c its defect level, S the carrier cost per good one as a
 function of total die area). Because exp(-L) >= 1 - L and N >= N_lo,
-N exp(-L) >= N - N_lo L, and S is replaced by a convex piecewise-linear under-estimator,
-the program below is a valid lower bound of the total cost V x cost + NRE for every
-selection. The evaluator prices each answer exactly; no-good cuts then enumerate every
-other selection whose bound is below the K-th best exact cost. When no (g, n) program has
-such a selection left, the K best are proven.
+N exp(-L) >= N - N_lo L; S is replaced by a convex piecewise-linear under-estimator. The
+resulting linear objective is a valid lower bound of the total cost
+V x cost per good unit + NRE of every selection.
 
-The copies of a candidate are one-hot: x_c = sum_k k w_ck with binary w_ck, so a no-good
-cut on a selection is a single inequality and z_c = sum_k w_ck carries the die's NRE.
+Copies are one-hot, x_c = sum_k k w_ck with binary w_ck, so that z_c = sum_k w_ck
+carries the die's NRE once and a no-good cut on a selection is a single inequality.
+
+Columns are first screened with the linear relaxation, solved directly with HiGHS on
+the arrays: a column at zero in the relaxed optimum with reduced cost r can only appear
+in selections whose bound is at least z_LP + r, so columns with z_LP + r above the
+current K-th best exact cost are left out of the integer program (built with Pyomo and
+solved by HiGHS), which keeps it small without losing any selection that could rank.
 """
 
 from __future__ import annotations
@@ -25,8 +29,10 @@ import math
 import time
 from dataclasses import dataclass, field
 
+import highspy
 import numpy as np
 import pyomo.environ as pyo
+import scipy.sparse as sp
 from pyomo.contrib.solver.common.results import TerminationCondition
 from pyomo.contrib.solver.solvers.highs import Highs
 from pyomo.core.expr.numeric_expr import LinearExpression
@@ -73,36 +79,37 @@ def carrier_underestimator(
 
 
 @dataclass
-class SubProblem:
-    """The integer program of one (packaging, die count) pair, kept between rounds."""
+class Columns:
+    """The lower-bounding program of one (packaging, die count) pair, as arrays."""
 
     packaging_index: int
     n_dies: int
-    model: pyo.ConcreteModel
-    solver: Highs
-    col_c: np.ndarray
-    col_k: np.ndarray
-    bound: float = -math.inf  # lower bound on total cost of selections not yet cut off
-    exhausted: bool = False
-    current: Selection | None = None
-    rounds: int = 0
-    seconds: float = 0.0
-    cuts: int = 0
-    log: list[str] = field(default_factory=list)
+    col_c: np.ndarray  # candidate of each column
+    col_k: np.ndarray  # copies of each column
+    cost: np.ndarray  # objective coefficient of each column
+    constant: float
+    cover: sp.csr_matrix  # (B, cols): block instances covered
+    cover_rhs: np.ndarray
+    once_groups: np.ndarray  # group id per column (candidate), for sum_k w_ck <= 1
+    area: np.ndarray | None = None  # total-area coefficient per column (interposer)
+    area_cap: float = math.inf
+    carrier_slopes: np.ndarray | None = None
+    carrier_intercepts: np.ndarray | None = None
+    carrier_factor: float = 0.0
+
+    @property
+    def n_cols(self) -> int:
+        return int(self.col_c.shape[0])
 
 
-def build_subproblem(
-    evaluator: Evaluator, candidates: CandidateSet, n_dies: int, keep: np.ndarray | None = None
-) -> SubProblem | None:
-    """Build the lower-bounding program for one packaging option and die count."""
+def build_columns(evaluator: Evaluator, candidates: CandidateSet, n_dies: int) -> Columns | None:
+    """Arrays of the lower-bounding program for one packaging option and die count."""
     problem = evaluator.problem
     g = candidates.packaging_index
     packaging = problem.packaging[g]
     prices = candidates.prices
     count = evaluator.blocks.count
     usable = candidates.max_copies >= 1
-    if keep is not None:
-        usable &= keep
     if n_dies == 1:
         usable &= np.all(candidates.instances == count[None, :], axis=1)
     cand = np.flatnonzero(usable)
@@ -110,7 +117,12 @@ def build_subproblem(
         return None
     reps = np.minimum(candidates.max_copies[cand], n_dies)
     col_c = np.repeat(cand, reps)
-    col_k = np.concatenate([np.arange(1, r + 1) for r in reps])
+    starts = np.cumsum(reps) - reps
+    col_k = np.arange(col_c.size) - np.repeat(starts, reps) + 1
+    # a column whose copies alone exceed some block's count can never be used
+    inst = candidates.instances[col_c]
+    fits = np.all(inst * col_k[:, None] <= count[None, :], axis=1)
+    col_c, col_k, inst = col_c[fits], col_k[fits], inst[fits]
     market = problem.market
     factor = market.volume / (
         packaging.carrier_yield * packaging.package_yield * packaging.bond_yield**n_dies
@@ -119,8 +131,10 @@ def build_subproblem(
     blocks = evaluator.blocks
     unit_min = (blocks.area_mm2 * blocks.scale).min(axis=0)
     area_lo = float(count @ unit_min)
-    interposer = packaging.kind == "silicon_interposer"
-    if interposer:
+    columns_area = col_k * prices.area_mm2[col_c]
+    slopes = intercepts = None
+    area_cap = math.inf
+    if packaging.kind == "silicon_interposer":
         area_cap = (
             packaging.interposer_max_area_mm2 - packaging.interposer_extra_area_mm2
         ) / packaging.interposer_area_factor
@@ -128,65 +142,199 @@ def build_subproblem(
         if area_hi < area_lo:
             return None
         slopes, intercepts = carrier_underestimator(evaluator, packaging, area_lo, area_hi)
-        carrier_floor = float(intercepts[0] + slopes[0] * area_lo) if len(slopes) else 0.0
-        carrier_floor = max(carrier_floor, float((slopes * area_lo + intercepts).max()))
+        carrier_floor = float((slopes * area_lo + intercepts).max())
     else:
         carrier_floor = packaging.carrier_cost
     k_c = prices.cost_per_passed_die[col_c]
     ell = prices.log1m_defect_level[col_c]
     n_lo = n_dies * float(prices.cost_per_passed_die[cand].min()) + fixed + carrier_floor
-    obj_coef = factor * col_k * (k_c - n_lo * ell) + prices.nre[col_c]
+    cost = factor * col_k * (k_c - n_lo * ell) + prices.nre[col_c]
     constant = factor * fixed + packaging.design_cost
+    if slopes is None:
+        constant += factor * packaging.carrier_cost
+    rows, cols = np.nonzero(inst.T)
+    cover = sp.csr_matrix(
+        ((col_k[cols] * inst[cols, rows]).astype(float), (rows, cols)),
+        shape=(blocks.n_blocks, col_c.size),
+    )
+    return Columns(
+        packaging_index=g,
+        n_dies=n_dies,
+        col_c=col_c,
+        col_k=col_k,
+        cost=cost,
+        constant=constant,
+        cover=cover,
+        cover_rhs=count.astype(float),
+        once_groups=col_c,
+        area=columns_area if slopes is not None else None,
+        area_cap=area_cap,
+        carrier_slopes=slopes,
+        carrier_intercepts=intercepts,
+        carrier_factor=factor,
+    )
 
-    m = pyo.ConcreteModel()
-    m.w = pyo.Var(range(len(col_c)), domain=pyo.Binary)
-    w = [m.w[i] for i in range(len(col_c))]
-    m.cover = pyo.ConstraintList()
-    inst = candidates.instances[col_c]
-    for b in range(blocks.n_blocks):
-        rows = np.flatnonzero(inst[:, b])
-        coefs = (col_k[rows] * inst[rows, b]).astype(float).tolist()
-        m.cover.add(
-            LinearExpression(linear_coefs=coefs, linear_vars=[w[i] for i in rows]) == int(count[b])
+
+@dataclass(frozen=True)
+class RelaxedBound:
+    """The linear relaxation: its optimum (a lower bound) and reduced costs."""
+
+    value: float
+    reduced_cost: np.ndarray
+    at_zero: np.ndarray  # columns at zero in the relaxed optimum
+    feasible: bool
+
+
+def relax(columns: Columns) -> RelaxedBound:
+    """Solve the linear relaxation with HiGHS directly on the arrays."""
+    n = columns.n_cols
+    interposer = columns.carrier_slopes is not None
+    n_var = n + (1 if interposer else 0)
+    blocks = [columns.cover, sp.csr_matrix(columns.col_k.astype(float)[None, :])]
+    lower = [columns.cover_rhs, np.array([columns.n_dies], dtype=float)]
+    upper = [columns.cover_rhs, np.array([columns.n_dies], dtype=float)]
+    groups, inverse, sizes = np.unique(columns.once_groups, return_inverse=True, return_counts=True)
+    multi = sizes[inverse] > 1
+    if multi.any():
+        multi_groups = np.flatnonzero(sizes > 1)
+        remap = -np.ones(len(groups), dtype=np.int64)
+        remap[multi_groups] = np.arange(len(multi_groups))
+        cols = np.flatnonzero(multi)
+        once = sp.csr_matrix(
+            (np.ones(cols.size), (remap[inverse[cols]], cols)), shape=(len(multi_groups), n)
         )
+        blocks.append(once)
+        lower.append(np.full(len(multi_groups), -np.inf))
+        upper.append(np.ones(len(multi_groups)))
+    a = sp.vstack(blocks, format="csr")
+    if interposer:
+        a = sp.hstack([a, sp.csr_matrix((a.shape[0], 1))], format="csr")
+        area_row = sp.csr_matrix(np.r_[columns.area, 0.0][None, :])
+        pwl = sp.csr_matrix(
+            np.column_stack(
+                [-columns.carrier_slopes[:, None] * columns.area[None, :],
+                 np.ones(len(columns.carrier_slopes))]
+            )
+        )
+        a = sp.vstack([a, area_row, pwl], format="csr")
+        lower += [np.array([-np.inf]), columns.carrier_intercepts]
+        upper += [np.array([columns.area_cap]), np.full(len(columns.carrier_slopes), np.inf)]
+    a = a.tocsc()
+    cost = np.r_[columns.cost, columns.carrier_factor] if interposer else columns.cost
+    h = highspy.Highs()
+    h.setOptionValue("output_flag", False)
+    lp = highspy.HighsLp()
+    lp.num_col_ = n_var
+    lp.num_row_ = a.shape[0]
+    lp.col_cost_ = cost.astype(float)
+    lp.col_lower_ = np.zeros(n_var)
+    lp.col_upper_ = np.r_[np.ones(n), np.inf] if interposer else np.ones(n)
+    lp.row_lower_ = np.concatenate(lower).astype(float)
+    lp.row_upper_ = np.concatenate(upper).astype(float)
+    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
+    lp.a_matrix_.start_ = a.indptr.astype(np.int32)
+    lp.a_matrix_.index_ = a.indices.astype(np.int32)
+    lp.a_matrix_.value_ = a.data.astype(float)
+    h.passModel(lp)
+    h.run()
+    status = h.getModelStatus()
+    if status != highspy.HighsModelStatus.kOptimal:
+        return RelaxedBound(math.inf, np.zeros(n), np.ones(n, dtype=bool), False)
+    solution = h.getSolution()
+    x = np.asarray(solution.col_value)[:n]
+    reduced = np.asarray(solution.col_dual)[:n]
+    value = h.getInfo().objective_function_value + columns.constant
+    return RelaxedBound(float(value), reduced, x < 1e-9, True)
+
+
+@dataclass
+class SubProblem:
+    """The integer program of one (packaging, die count) pair over kept columns."""
+
+    columns: Columns
+    keep: np.ndarray  # column indices in the Pyomo model
+    model: pyo.ConcreteModel
+    solver: Highs
+    bound: float = -math.inf  # lower bound on total cost of selections not yet cut off
+    exhausted: bool = False
+    current: Selection | None = None
+    active: np.ndarray | None = None
+    rounds: int = 0
+    seconds: float = 0.0
+    cuts: int = 0
+    log: list[str] = field(default_factory=list)
+
+    @property
+    def packaging_index(self) -> int:
+        return self.columns.packaging_index
+
+    @property
+    def n_dies(self) -> int:
+        return self.columns.n_dies
+
+
+def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
+    """The Pyomo integer program over the columns ``keep`` (indices into ``columns``)."""
+    keep = np.asarray(keep, dtype=np.int64)
+    m = pyo.ConcreteModel()
+    m.w = pyo.Var(range(keep.size), domain=pyo.Binary)
+    w = [m.w[i] for i in range(keep.size)]
+    cover = columns.cover[:, keep].tocsr()
+    m.cover = pyo.ConstraintList()
+    for b in range(cover.shape[0]):
+        lo, hi = cover.indptr[b], cover.indptr[b + 1]
+        m.cover.add(
+            LinearExpression(
+                linear_coefs=cover.data[lo:hi].tolist(),
+                linear_vars=[w[i] for i in cover.indices[lo:hi]],
+            )
+            == float(columns.cover_rhs[b])
+        )
+    col_k = columns.col_k[keep].astype(float)
     m.count = pyo.Constraint(
-        expr=LinearExpression(linear_coefs=col_k.astype(float).tolist(), linear_vars=w) == n_dies
+        expr=LinearExpression(linear_coefs=col_k.tolist(), linear_vars=w) == columns.n_dies
     )
     m.once = pyo.ConstraintList()
-    multi = np.flatnonzero(reps > 1)
-    starts = np.concatenate([[0], np.cumsum(reps)[:-1]])
-    for j in multi:
-        cols = range(starts[j], starts[j] + reps[j])
-        m.once.add(LinearExpression(linear_coefs=[1.0] * reps[j], linear_vars=[w[i] for i in cols]) <= 1)
-    objective_terms = LinearExpression(
-        constant=constant, linear_coefs=obj_coef.tolist(), linear_vars=w
+    groups = columns.once_groups[keep]
+    order = np.argsort(groups, kind="stable")
+    bounds = np.flatnonzero(np.r_[True, groups[order][1:] != groups[order][:-1], True])
+    for lo, hi in zip(bounds[:-1], bounds[1:], strict=True):
+        if hi - lo > 1:
+            m.once.add(
+                LinearExpression(
+                    linear_coefs=[1.0] * int(hi - lo), linear_vars=[w[i] for i in order[lo:hi]]
+                )
+                <= 1
+            )
+    objective = LinearExpression(
+        constant=columns.constant, linear_coefs=columns.cost[keep].tolist(), linear_vars=w
     )
-    if interposer:
+    if columns.carrier_slopes is not None:
         m.carrier = pyo.Var(domain=pyo.NonNegativeReals)
-        area_coef = (col_k * prices.area_mm2[col_c]).tolist()
+        area = columns.area[keep]
         m.area_cap = pyo.Constraint(
-            expr=LinearExpression(linear_coefs=area_coef, linear_vars=w) <= area_cap
+            expr=LinearExpression(linear_coefs=area.tolist(), linear_vars=w) <= columns.area_cap
         )
         m.carrier_lb = pyo.ConstraintList()
-        for slope, intercept in zip(slopes, intercepts, strict=True):
+        for slope, intercept in zip(columns.carrier_slopes, columns.carrier_intercepts, strict=True):
             m.carrier_lb.add(
                 m.carrier
                 >= LinearExpression(
                     constant=float(intercept),
-                    linear_coefs=(slope * np.asarray(area_coef)).tolist(),
+                    linear_coefs=(slope * area).tolist(),
                     linear_vars=w,
                 )
             )
-        m.objective = pyo.Objective(expr=objective_terms + factor * m.carrier)
+        m.objective = pyo.Objective(expr=objective + columns.carrier_factor * m.carrier)
     else:
-        m.objective = pyo.Objective(expr=objective_terms + factor * packaging.carrier_cost)
+        m.objective = pyo.Objective(expr=objective)
     m.nogood = pyo.ConstraintList()
     solver = Highs()
     solver.config.load_solutions = False
     solver.config.raise_exception_on_nonoptimal_result = False
     solver.config.rel_gap = 1e-9
     solver.config.abs_gap = 1e-6
-    return SubProblem(g, n_dies, m, solver, col_c, col_k)
+    return SubProblem(columns, keep, m, solver)
 
 
 def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
@@ -205,27 +353,28 @@ def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
         sub.log.append(f"round {sub.rounds}: no selection left")
         return
     bound = result.objective_bound
-    sub.bound = float(bound) if bound is not None and math.isfinite(bound) else -math.inf
+    sub.bound = max(sub.bound, float(bound)) if bound is not None and math.isfinite(bound) else sub.bound
     if result.incumbent_objective is None:
         sub.current = None  # time ran out before a selection was found
         sub.log.append(f"round {sub.rounds}: no selection found yet ({tc.name})")
         return
     result.solution_loader.load_vars()
-    values = np.array([sub.model.w[i].value or 0.0 for i in range(len(sub.col_c))])
+    values = np.array([sub.model.w[i].value or 0.0 for i in range(sub.keep.size)])
     active = np.flatnonzero(values > 0.5)
+    cols = sub.keep[active]
     sub.current = Selection.of(
-        sub.packaging_index, zip(sub.col_c[active], sub.col_k[active], strict=True)
+        sub.packaging_index, zip(sub.columns.col_c[cols], sub.columns.col_k[cols], strict=True)
     )
+    sub.active = active
     sub.log.append(
-        f"round {sub.rounds}: bound {sub.bound:.6g}, selection objective "
-        f"{result.incumbent_objective:.6g} ({tc.name})"
+        f"round {sub.rounds}: bound {sub.bound:.8g}, selection objective "
+        f"{result.incumbent_objective:.8g} ({tc.name})"
     )
-    sub._active = active  # type: ignore[attr-defined]
 
 
 def cut_current(sub: SubProblem) -> None:
     """Exclude the current selection from the program (a single no-good inequality)."""
-    active = sub._active  # type: ignore[attr-defined]
+    active = sub.active
     sub.model.nogood.add(
         LinearExpression(
             linear_coefs=[1.0] * len(active), linear_vars=[sub.model.w[int(i)] for i in active]
@@ -234,3 +383,4 @@ def cut_current(sub: SubProblem) -> None:
     )
     sub.cuts += 1
     sub.current = None
+    sub.bound = -math.inf  # the program changed; its next solve sets the bound again

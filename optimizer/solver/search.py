@@ -17,7 +17,16 @@ import numpy as np
 
 from optimizer.evaluator import Evaluator
 from optimizer.solver.candidates import CandidateSet, build_candidates, enumerate_contents
-from optimizer.solver.milp import SubProblem, build_subproblem, cut_current, solve_round
+from optimizer.solver.milp import (
+    Columns,
+    RelaxedBound,
+    SubProblem,
+    build_columns,
+    build_subproblem,
+    cut_current,
+    relax,
+    solve_round,
+)
 from optimizer.solver.selection import Selection, price_selections
 
 REL_TOL = 1e-9
@@ -49,9 +58,15 @@ def _kth(values: list[float], k: int) -> float:
 
 
 def milp_search(
-    evaluator: Evaluator, top: int = 1, time_limit: float | None = None
+    evaluator: Evaluator, top: int = 1, time_limit: float | None = None, screen_columns: int = 200
 ) -> SearchOutcome:
-    """Proven top-``top`` designs by integer programming with exact verification."""
+    """Proven top-``top`` designs by integer programming with exact verification.
+
+    1. For every (packaging, die count) the linear relaxation gives a bound and reduced
+       costs. 2. Small integer programs over the most promising columns give exact
+       incumbents. 3. Columns that cannot reach the K-th best exact cost are dropped and
+       the full programs enumerate, cut and price until every bound clears it.
+    """
     start = time.perf_counter()
     problem = evaluator.problem
     market = problem.market
@@ -59,17 +74,24 @@ def milp_search(
     log: list[str] = []
     contents = enumerate_contents(evaluator)
     candidates: dict[int, CandidateSet] = {}
-    subs: list[SubProblem] = []
+    relaxed: list[tuple[float, Columns, RelaxedBound]] = []
     for g, packaging in enumerate(problem.packaging):
-        cset = build_candidates(evaluator, g, contents)
+        cset = build_candidates(evaluator, g, contents, depth=top)
         candidates[g] = cset
         log.append(f"packaging {packaging.name}: {len(cset)} candidate dies after pruning")
         n_max = min(packaging.max_dies, problem.constraints.max_dies)
         for n in range(1, n_max + 1):
-            sub = build_subproblem(evaluator, cset, n)
-            if sub is not None:
-                subs.append(sub)
-    log.append(f"built {len(subs)} programs in {time.perf_counter() - start:.2f} s")
+            columns = build_columns(evaluator, cset, n)
+            if columns is None:
+                continue
+            bound = relax(columns)
+            if bound.feasible:
+                relaxed.append((bound.value, columns, bound))
+    relaxed.sort(key=lambda item: item[0])
+    log.append(
+        f"relaxations of {len(relaxed)} (packaging, die count) programs in "
+        f"{time.perf_counter() - start:.2f} s"
+    )
 
     exact: dict[Selection, float] = {}
 
@@ -78,60 +100,89 @@ def milp_search(
         if sel is None or sel in exact:
             return
         prices = price_selections(evaluator, candidates[sel.packaging_index], [sel])
-        feasible = bool(prices.carrier_feasible[0])
         total = market.volume * float(prices.manufacturing_cost_per_good_unit[0]) + float(
             prices.nre[0]
         )
-        exact[sel] = total if feasible else math.inf
+        exact[sel] = total if bool(prices.carrier_feasible[0]) else math.inf
 
     def remaining() -> float | None:
         return None if time_limit is None else time_limit - (time.perf_counter() - start)
 
-    timed_out = False
-    for sub in subs:
+    def out_of_time() -> bool:
         left = remaining()
-        if left is not None and left <= 0:
+        return left is not None and left <= 0
+
+    def threshold() -> float:
+        return _kth(list(exact.values()), top)
+
+    def open_bound(value: float) -> bool:
+        return value < threshold() * (1 - REL_TOL) - 1e-6
+
+    timed_out = False
+    # incumbents from small programs over the columns of least reduced cost
+    for value, columns, bound in relaxed:
+        if out_of_time():
             timed_out = True
             break
-        solve_round(sub, left)
+        if not open_bound(value) and len(exact) >= top:
+            continue
+        order = np.argsort(bound.reduced_cost, kind="stable")
+        keep = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
+        sub = build_subproblem(columns, keep)
+        for _ in range(top):
+            solve_round(sub, remaining())
+            price(sub)
+            if sub.current is None or out_of_time():
+                break
+            cut_current(sub)
+    log.append(f"screening found {len(exact)} designs in {time.perf_counter() - start:.2f} s")
+
+    subs: list[SubProblem] = []
+    unexplored = []
+    for value, columns, bound in relaxed:
+        if not open_bound(value):
+            continue
+        if timed_out or out_of_time():
+            timed_out = True
+            unexplored.append(value)
+            continue
+        limit = threshold() * (1 + REL_TOL) + 1e-6
+        keep = np.flatnonzero(~(bound.at_zero & (value + bound.reduced_cost > limit)))
+        sub = build_subproblem(columns, keep)
+        sub.bound = value
+        sub.log.append(f"relaxation {value:.8g}; {keep.size} of {columns.n_cols} columns kept")
+        subs.append(sub)
+        solve_round(sub, remaining())
         price(sub)
     while not timed_out:
-        threshold = _kth(list(exact.values()), top)
-        open_subs = [
-            s for s in subs if not s.exhausted and s.bound < threshold * (1 - REL_TOL) - 1e-9
-        ]
+        open_subs = [s for s in subs if not s.exhausted and open_bound(s.bound)]
         if not open_subs:
             break
         sub = min(open_subs, key=lambda s: s.bound)
-        if sub.current is None and sub.rounds > 0 and sub.bound > -math.inf:
-            pass
         if sub.current is not None:
             cut_current(sub)
-        left = remaining()
-        if left is not None and left <= 0:
+        if out_of_time():
             timed_out = True
             break
-        solve_round(sub, left)
+        solve_round(sub, remaining())
         price(sub)
     ranked_items = sorted(
         ((sel, total) for sel, total in exact.items() if math.isfinite(total)),
         key=lambda item: (item[1], item[0]),
     )[:top]
     ranked = [RankedSelection(sel, total, revenue - total) for sel, total in ranked_items]
-    open_bounds = [s.bound for s in subs if not s.exhausted]
+    open_bounds = [s.bound for s in subs if not s.exhausted and open_bound(s.bound)] + unexplored
     best = ranked[0].total_cost if ranked else math.inf
-    bound = min([best, *open_bounds]) if open_bounds else best
-    proven = not timed_out and all(
-        s.exhausted or s.bound >= _kth(list(exact.values()), top) * (1 - REL_TOL) - 1e-9
-        for s in subs
-    )
+    bound = min([best, *open_bounds])
+    proven = not timed_out and not open_bounds
     for s in subs:
         log.extend(
             f"[{problem.packaging[s.packaging_index].name}, {s.n_dies} dies] {line}"
             for line in s.log
         )
     stats = {
-        "programs": len(subs),
+        "programs": len(relaxed),
+        "programs_searched": len(subs),
         "rounds": sum(s.rounds for s in subs),
         "cuts": sum(s.cuts for s in subs),
         "designs_priced": len(exact),
