@@ -84,8 +84,16 @@ def test_vector_over_leading_axes_equals_loop():
     final_test=st.floats(0.0, 100.0),
 )
 def test_cost_per_good_package_never_below_the_inputs(
-    costs, copies, dls, bond_cost, bond_yield, carrier_cost, carrier_yield, package_cost,
-    package_yield, final_test,
+    costs,
+    copies,
+    dls,
+    bond_cost,
+    bond_yield,
+    carrier_cost,
+    carrier_yield,
+    package_cost,
+    package_yield,
+    final_test,
 ):
     # Property: scrap can only add cost, so a good package costs at least the sum of
     # what went into building one.
@@ -93,8 +101,16 @@ def test_cost_per_good_package_never_below_the_inputs(
     raw_sum = (n * np.array(costs)).sum() + carrier_cost + n.sum() * bond_cost
     raw_sum += package_cost + final_test
     got = cost_per_good_package(
-        np.array(costs), n, np.log1p(-np.array(dls)), bond_cost, bond_yield, carrier_cost,
-        carrier_yield, package_cost, package_yield, final_test,
+        np.array(costs),
+        n,
+        np.log1p(-np.array(dls)),
+        bond_cost,
+        bond_yield,
+        carrier_cost,
+        carrier_yield,
+        package_cost,
+        package_yield,
+        final_test,
     )
     assert got >= raw_sum * (1 - 1e-12)
     log_p = log_package_yield(np.log1p(-np.array(dls)), n, bond_yield, carrier_yield, package_yield)

@@ -54,9 +54,7 @@ def test_log_yield_matches_scipy_and_stays_accurate():
     # the survival function, which resolves -2e-9 at 6 sigma.
     assert_allclose(log_parametric_yield(K, two_sided=False), norm.logcdf(K), rtol=1e-13)
     k = K[1:]
-    assert_allclose(
-        log_parametric_yield(k, two_sided=True), np.log1p(-2 * norm.sf(k)), rtol=1e-12
-    )
+    assert_allclose(log_parametric_yield(k, two_sided=True), np.log1p(-2 * norm.sf(k)), rtol=1e-12)
     # Limiting cases: far below the spec log Phi(k) ~ -k^2/2 stays finite; a two-sided
     # margin of zero passes nothing.
     assert np.isfinite(log_parametric_yield(-40.0, two_sided=False))
@@ -73,9 +71,7 @@ def test_inverse_round_trip(two_sided):
     # Round trip: margin -> yield -> margin, and margin -> tail -> margin for tails the
     # yield itself cannot carry (1 - 2e-9).
     k = np.array([0.5, 1.0, 3.0, 4.5, 6.0])
-    assert_allclose(
-        sigma_margin_for_yield(parametric_yield(k, two_sided), two_sided), k, rtol=1e-7
-    )
+    assert_allclose(sigma_margin_for_yield(parametric_yield(k, two_sided), two_sided), k, rtol=1e-7)
     assert_allclose(
         sigma_margin_for_fraction_outside(fraction_outside(k, two_sided), two_sided),
         k,

@@ -165,8 +165,8 @@ def test_array_repair_log_space_far_out():
     m = fraction * area * density
     terms = [j * math.log(m) - m - math.lgamma(j + 1) for j in range(repairs + 1)]
     top = max(terms)
-    expected = -(1 - fraction) * area * density + top + math.log(
-        sum(math.exp(t - top) for t in terms)
+    expected = (
+        -(1 - fraction) * area * density + top + math.log(sum(math.exp(t - top) for t in terms))
     )
     got = log_array_repair_factor(area, density, fraction, repairs)
     assert np.isfinite(got)

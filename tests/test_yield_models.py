@@ -303,9 +303,7 @@ def test_spare_mixture_matches_adaptive_quadrature(alpha, needed, spare, block_a
     def factor(d):
         return log_spare_unit_factor(unit, d, needed, spare)
 
-    got = log_mixed_yield(
-        "negative_binomial", d0, plain_ad / d0, factor, clustering_alpha=alpha
-    )
+    got = log_mixed_yield("negative_binomial", d0, plain_ad / d0, factor, clustering_alpha=alpha)
     assert_allclose(got, gamma_reference(alpha, d0, plain_ad / d0, factor), rtol=1e-8)
 
 

@@ -126,9 +126,7 @@ def log1m_defect_level(log_die_yield: ArrayLike, fault_coverage: ArrayLike) -> n
 log1m_defect_level_from_log = log1m_defect_level
 
 
-def defect_level_from_log_yield(
-    log_die_yield: ArrayLike, fault_coverage: ArrayLike
-) -> np.ndarray:
+def defect_level_from_log_yield(log_die_yield: ArrayLike, fault_coverage: ArrayLike) -> np.ndarray:
     """Defect level of passed dies from the log of the die yield.
 
     Parameters

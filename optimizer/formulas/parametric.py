@@ -164,9 +164,7 @@ def sigma_margin_for_yield(target_yield: ArrayLike, two_sided: ArrayLike) -> np.
     return _result(np.where(two_sided, -ndtri((1 - y) / 2), one))
 
 
-def sigma_margin_for_fraction_outside(
-    fraction: ArrayLike, two_sided: ArrayLike
-) -> np.ndarray:
+def sigma_margin_for_fraction_outside(fraction: ArrayLike, two_sided: ArrayLike) -> np.ndarray:
     """Design margin that leaves a given fraction outside the spec.
 
     Inverse of :func:`fraction_outside`; use it for targets such as 2e-9 that

@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy.special import bdtrc, gammaln, logsumexp, pdtr, pdtrc
+from scipy.special import bdtr, bdtrc, gammaln, pdtr, pdtrc
 
 __all__ = [
     "log_spare_unit_factor",
@@ -30,12 +30,23 @@ __all__ = [
 
 # Below this the Poisson CDF from scipy may have underflowed; sum terms in logs instead.
 _POISSON_CDF_UNDERFLOW = 1e-250
+# Likewise for the binomial CDFs.
+_BINOMIAL_UNDERFLOW = 1e-250
 # Terms kept in that log-space sum: they fall at least as fast as (k / mean)^i.
 _POISSON_TAIL_TERMS = 1024
 
 
 def _result(x: ArrayLike) -> np.ndarray:
     return np.asarray(x)[()]
+
+
+def _logsumexp(a: np.ndarray, axis: int = -1, keepdims: bool = False) -> np.ndarray:
+    """log(sum(exp(a))) along one axis; scipy's version is several times slower here."""
+    top = np.max(a, axis=axis, keepdims=True)
+    top = np.where(np.isfinite(top), top, 0.0)  # rows of -inf (or inf) stay as they are
+    with np.errstate(divide="ignore"):
+        out = np.log(np.sum(np.exp(a - top), axis=axis, keepdims=True)) + top
+    return out if keepdims else np.squeeze(out, axis=axis)
 
 
 def _log_unit_probabilities(unit_defects: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -94,26 +105,56 @@ def log_spare_unit_factor(
     spare = np.asarray(spare_units).astype(np.int64)
     unit_defects, needed, spare = np.broadcast_arrays(unit_defects, needed, spare)
     total = needed + spare
-    log_good, log_bad = _log_unit_probabilities(unit_defects)
+    # bdtrc(s, N, q): P(more than s of N units bad), accurate when small; the log-space
+    # sum is only needed (and only computed) where that probability is not small.
+    failure = bdtrc(spare, total, -np.expm1(-unit_defects))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        # np.array, not the ufunc result: a scalar input must still take item assignment.
+        out = np.array(np.log1p(-np.minimum(failure, 0.5)), dtype=float)
+    hard = ~(failure < 0.5)
+    if hard.any():
+        out[hard] = _log_success(unit_defects[hard], needed[hard], total[hard], spare[hard])
+    return _result(out)
 
-    bad = np.arange(int(spare.max(initial=0)) + 1)
-    j = bad.reshape((1,) * unit_defects.ndim + (-1,))
-    total_ = total[..., None]
-    allowed = j <= spare[..., None]
+
+def _log_success(
+    unit_defects: np.ndarray, needed: np.ndarray, total: np.ndarray, spare: np.ndarray
+) -> np.ndarray:
+    """log P(at least ``needed`` of ``total`` units good) where it is not close to 1.
+
+    scipy's binomial CDFs form ``1 - p`` inside, so each is used on the side where its
+    argument is at most 1/2; only values that underflow take the log-space sum.
+    """
+    good = np.exp(-unit_defects)
+    low = good < 0.5
+    success = np.empty(good.shape)
+    success[low] = bdtrc(needed[low] - 1, total[low], good[low])  # P(more than n-1 good)
+    high = ~low
+    bad = -np.expm1(-unit_defects[high])
+    success[high] = bdtr(spare[high], total[high], bad)  # P(at most s bad)
+    with np.errstate(divide="ignore"):
+        out = np.log(success)
+    deep = ~(success > _BINOMIAL_UNDERFLOW)
+    if deep.any():
+        out[deep] = _log_at_most_bad(unit_defects[deep], total[deep], spare[deep])
+    return out
+
+
+def _log_at_most_bad(unit_defects: np.ndarray, total: np.ndarray, spare: np.ndarray) -> np.ndarray:
+    """log P(at most ``spare`` of ``total`` units bad), summed in log space (1-d inputs)."""
+    log_good, log_bad = _log_unit_probabilities(unit_defects)
+    j = np.arange(int(spare.max(initial=0)) + 1)[None, :]
+    total_ = total[:, None]
+    allowed = j <= spare[:, None]
     with np.errstate(invalid="ignore"):
         log_terms = (
             gammaln(total_ + 1)
             - gammaln(j + 1)
             - gammaln(np.where(allowed, total_ - j, 0) + 1)
-            + np.where(j > 0, j * log_bad[..., None], 0.0)
-            + (total_ - j) * log_good[..., None]
+            + np.where(j > 0, j * log_bad[:, None], 0.0)
+            + (total_ - j) * log_good[:, None]
         )
-    log_ok = logsumexp(np.where(allowed, log_terms, -np.inf), axis=-1)
-
-    # bdtrc(s, N, q): P(more than s of N units bad), accurate when small.
-    failure = bdtrc(spare, total, -np.expm1(-unit_defects))
-    with np.errstate(divide="ignore"):
-        return _result(np.where(failure < 0.5, np.log1p(-failure), log_ok))
+    return _logsumexp(np.where(allowed, log_terms, -np.inf), axis=-1)
 
 
 def spare_unit_factor(
@@ -175,12 +216,10 @@ def _log_poisson_cdf(count: np.ndarray, mean: np.ndarray) -> np.ndarray:
             log_ratio = np.where(
                 steps < k[:, None], np.log((k[:, None] - steps) / m[:, None]), -np.inf
             )
-        log_series = np.concatenate(
-            [np.zeros((k.size, 1)), np.cumsum(log_ratio, axis=-1)], axis=-1
-        )
+        log_series = np.concatenate([np.zeros((k.size, 1)), np.cumsum(log_ratio, axis=-1)], axis=-1)
         log_top = k * np.log(m) - m - gammaln(k + 1)
         out = out.copy()
-        out[tiny] = log_top + logsumexp(log_series, axis=-1)
+        out[tiny] = log_top + _logsumexp(log_series, axis=-1)
     return out
 
 
@@ -357,5 +396,9 @@ def salvage_bin_probabilities(
     .. [1] Koren and Koren, Proc. IEEE 86(9), 1998.
     """
     return _result(
-        np.exp(log_salvage_bin_probabilities(unit_critical_area_cm2, defect_density_per_cm2, total_units))
+        np.exp(
+            log_salvage_bin_probabilities(
+                unit_critical_area_cm2, defect_density_per_cm2, total_units
+            )
+        )
     )

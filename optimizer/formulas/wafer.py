@@ -247,7 +247,7 @@ def gross_dies_exact(usable_radius_mm: float, site_width_mm: float, site_height_
     return _best_offset(float(usable_radius_mm), float(site_width_mm), float(site_height_mm))[0]
 
 
-@functools.lru_cache(maxsize=4096)
+@functools.lru_cache(maxsize=1 << 18)
 def _gross_dies_exact_cached(r: float, w: float, h: float) -> int:
     # Keys are sorted (w <= h): a quarter turn maps the grid onto itself.
     return _best_offset(r, w, h)[0]

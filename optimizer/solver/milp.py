@@ -101,6 +101,21 @@ class Columns:
     def n_cols(self) -> int:
         return int(self.col_c.shape[0])
 
+    def quick_bound(self) -> float:
+        """A bound needing no solve: each block instance pays at least the cheapest
+        per-instance share of any column covering it (the carrier at its floor)."""
+        instances = np.asarray(self.cover.sum(axis=0)).ravel()
+        share = self.cost / instances
+        per_block = np.full(self.cover.shape[0], np.inf)
+        rows, cols = self.cover.nonzero()
+        np.minimum.at(per_block, rows, share[cols])
+        bound = self.constant + float(self.cover_rhs @ per_block)
+        if self.carrier_slopes is not None:
+            area_lo = float(self.area.min()) if self.area.size else 0.0
+            floor = float((self.carrier_slopes * area_lo + self.carrier_intercepts).max())
+            bound += self.carrier_factor * max(floor, 0.0)
+        return bound
+
 
 def build_columns(evaluator: Evaluator, candidates: CandidateSet, n_dies: int) -> Columns | None:
     """Arrays of the lower-bounding program for one packaging option and die count."""

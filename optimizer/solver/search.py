@@ -74,7 +74,7 @@ def milp_search(
     log: list[str] = []
     contents = enumerate_contents(evaluator)
     candidates: dict[int, CandidateSet] = {}
-    relaxed: list[tuple[float, Columns, RelaxedBound]] = []
+    programs: list[tuple[float, Columns]] = []
     for g, packaging in enumerate(problem.packaging):
         cset = build_candidates(evaluator, g, contents, depth=top)
         candidates[g] = cset
@@ -82,16 +82,10 @@ def milp_search(
         n_max = min(packaging.max_dies, problem.constraints.max_dies)
         for n in range(1, n_max + 1):
             columns = build_columns(evaluator, cset, n)
-            if columns is None:
-                continue
-            bound = relax(columns)
-            if bound.feasible:
-                relaxed.append((bound.value, columns, bound))
-    relaxed.sort(key=lambda item: item[0])
-    log.append(
-        f"relaxations of {len(relaxed)} (packaging, die count) programs in "
-        f"{time.perf_counter() - start:.2f} s"
-    )
+            if columns is not None:
+                programs.append((columns.quick_bound(), columns))
+    programs.sort(key=lambda item: item[0])
+    log.append(f"{len(programs)} (packaging, die count) programs in {time.perf_counter() - start:.2f} s")
 
     exact: dict[Selection, float] = {}
 
@@ -118,13 +112,33 @@ def milp_search(
     def open_bound(value: float) -> bool:
         return value < threshold() * (1 - REL_TOL) - 1e-6
 
+    # one-die designs need no program: price them all at once for a first threshold
+    for g, cset in candidates.items():
+        whole = np.flatnonzero(np.all(cset.instances == evaluator.blocks.count[None, :], axis=1))
+        if whole.size:
+            sels = [Selection.of(g, [(int(c), 1)]) for c in whole]
+            prices = price_selections(evaluator, cset, sels)
+            totals = market.volume * prices.manufacturing_cost_per_good_unit + prices.nre
+            for sel, total, ok in zip(sels, totals, prices.carrier_feasible, strict=True):
+                exact[sel] = float(total) if ok else math.inf
+
     timed_out = False
-    # incumbents from small programs over the columns of least reduced cost
-    for value, columns, bound in relaxed:
+    relaxed: list[tuple[float, Columns, RelaxedBound]] = []
+    unexplored: list[float] = []
+    # programs in order of their quick bound: relax, and while fewer than K designs are
+    # known, find incumbents with a small program over the least-reduced-cost columns
+    for quick, columns in programs:
+        if not open_bound(quick):
+            continue
         if out_of_time():
             timed_out = True
-            break
-        if not open_bound(value) and len(exact) >= top:
+            unexplored.append(quick)
+            continue
+        bound = relax(columns)
+        if not bound.feasible or not open_bound(bound.value):
+            continue
+        relaxed.append((bound.value, columns, bound))
+        if len(exact) >= top:
             continue
         order = np.argsort(bound.reduced_cost, kind="stable")
         keep = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
@@ -135,10 +149,13 @@ def milp_search(
             if sub.current is None or out_of_time():
                 break
             cut_current(sub)
-    log.append(f"screening found {len(exact)} designs in {time.perf_counter() - start:.2f} s")
+    relaxed.sort(key=lambda item: item[0])
+    log.append(
+        f"{len(relaxed)} relaxations kept, {len(exact)} designs from screening, "
+        f"{time.perf_counter() - start:.2f} s"
+    )
 
     subs: list[SubProblem] = []
-    unexplored = []
     for value, columns, bound in relaxed:
         if not open_bound(value):
             continue
@@ -181,7 +198,8 @@ def milp_search(
             for line in s.log
         )
     stats = {
-        "programs": len(relaxed),
+        "programs": len(programs),
+        "relaxations": len(relaxed),
         "programs_searched": len(subs),
         "rounds": sum(s.rounds for s in subs),
         "cuts": sum(s.cuts for s in subs),
