@@ -217,7 +217,8 @@ def test_gamma_mixture_with_unit_factor_is_negative_binomial(alpha, ad):
     assert_allclose(got, negative_binomial_yield(ad, alpha), rtol=1e-9)
 
 
-@pytest.mark.parametrize("alpha", [0.5, 1.0, 2.0, 5.0])
+# alpha = 400 takes the Golub-Welsch branch of the node tables (Gamma(400) overflows).
+@pytest.mark.parametrize("alpha", [0.5, 1.0, 2.0, 5.0, 400.0])
 @pytest.mark.parametrize("ad", [0.01, 0.5, 3.0, 20.0])
 def test_spare_mixture_without_spares_is_closed_form_of_whole_area(alpha, ad):
     # Limiting case: with no spare, all n units must be good, so the units are plain

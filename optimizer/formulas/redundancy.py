@@ -89,9 +89,10 @@ def log_spare_unit_factor(
 
         P(K \\ge n) = \\sum_{j=0}^{s} \\binom{N}{j} (1 - y)^j y^{N - j}
 
-    (``j`` bad units). The sum is taken in log space, which cannot underflow; where the
-    result is above 1/2 it is replaced by ``log1p(-P(more than s bad))`` so that
-    probabilities near 1 keep their relative precision.
+    (``j`` bad units). Above 1/2 it is computed as ``log1p(-P(more than s bad))`` so
+    that probabilities near 1 keep their relative precision; below, from scipy's
+    binomial CDF on whichever side keeps ``1 - p`` exact; and where that underflows, as
+    the sum itself in log space.
 
     References
     ----------
