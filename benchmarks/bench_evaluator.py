@@ -32,7 +32,7 @@ def batch(ev: Evaluator, contents: np.ndarray, n: int, redundancy: bool, seed: i
     spares = np.zeros_like(pick)
     repairs = np.zeros_like(pick)
     if redundancy:
-        core, cache = ev.problem.block_index("compute_core"), ev.problem.block_index("cache_slice")
+        core, cache = ev.problem.block_index("compute_cluster"), ev.problem.block_index("cache_slice")
         spares[:, core] = np.where(pick[:, core] > 0, rng.integers(1, 3, n), 0)
         repairs[:, cache] = np.where(pick[:, cache] > 0, 8, 0)
     packaging = ev.problem.packaging[1]
@@ -54,7 +54,7 @@ def main() -> None:
     print(f"{len(contents)} distinct block contents; batch of {args.dies} dies, one process")
     for redundancy in (False, True):
         b = batch(ev, contents, args.dies, redundancy, seed=1)
-        wafer._gross_dies_exact_cached.cache_clear()
+        wafer.clear_count_cache()
         t0 = time.perf_counter()
         prices = ev.price_dies(b)
         cold = time.perf_counter() - t0

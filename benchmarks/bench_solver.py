@@ -33,11 +33,11 @@ def main() -> None:
     if not args.skip_exhaustive:
         problem = synthetic_problem(8)
         # both start with an empty gross-die cache, so both pay for the exact counts
-        wafer._gross_dies_exact_cached.cache_clear()
+        wafer.clear_count_cache()
         t0 = time.perf_counter()
         ours = solve(problem, top=1)
         t_ours = time.perf_counter() - t0
-        wafer._gross_dies_exact_cached.cache_clear()
+        wafer.clear_count_cache()
         t0 = time.perf_counter()
         brute = solve(problem, top=1, method="exhaustive")
         t_brute = time.perf_counter() - t0

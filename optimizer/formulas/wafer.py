@@ -13,7 +13,6 @@ a check; it ignores the die shape.
 
 from __future__ import annotations
 
-import functools
 import math
 
 import numpy as np
@@ -247,13 +246,27 @@ def gross_dies_exact(usable_radius_mm: float, site_width_mm: float, site_height_
     return _best_offset(float(usable_radius_mm), float(site_width_mm), float(site_height_mm))[0]
 
 
-@functools.lru_cache(maxsize=1 << 18)
-def _gross_dies_exact_cached(r: float, w: float, h: float) -> int:
-    # Keys are sorted (w <= h): a quarter turn maps the grid onto itself.
-    return _best_offset(r, w, h)[0]
+# Exact counts by rounded footprint (radius, short side, long side); a quarter turn maps
+# the grid onto itself, so sorted sides share an entry.
+_COUNT_CACHE: dict[tuple[float, float, float], int] = {}
+
+# Below this many new footprints, handing work to other processes costs more than it saves.
+_PARALLEL_MIN_FOOTPRINTS = 2000
 
 
-def gross_dies_exact_many(usable_radius_mm, site_width_mm, site_height_mm) -> np.ndarray:
+def _count_footprints(keys: list[tuple[float, float, float]]) -> list[int]:
+    """Exact counts of footprints given as (radius, short side, long side) tuples."""
+    return [_best_offset(r, w, h)[0] for r, w, h in keys]
+
+
+def clear_count_cache() -> None:
+    """Forget cached exact counts (benchmarks time cold runs with it)."""
+    _COUNT_CACHE.clear()
+
+
+def gross_dies_exact_many(
+    usable_radius_mm, site_width_mm, site_height_mm, map_chunks=None
+) -> np.ndarray:
     """Vectorised `gross_dies_exact` over broadcast arrays of footprints.
 
     Parameters
@@ -264,6 +277,9 @@ def gross_dies_exact_many(usable_radius_mm, site_width_mm, site_height_mm) -> np
         Site pitch along x [mm].
     site_height_mm : float or array_like
         Site pitch along y [mm].
+    map_chunks : callable, optional
+        ``map_chunks(function, chunks)`` like the builtin ``map``; lets a caller count
+        many new footprints in parallel (each chunk is a list of footprint tuples).
 
     Returns
     -------
@@ -288,10 +304,17 @@ def gross_dies_exact_many(usable_radius_mm, site_width_mm, site_height_mm) -> np
     hi = np.round(np.maximum(w, h), _CACHE_DECIMALS)
     keys = np.stack([r.ravel(), lo.ravel(), hi.ravel()], axis=1)
     unique, inverse = np.unique(keys, axis=0, return_inverse=True)
-    counts = np.array(
-        [_gross_dies_exact_cached(float(a), float(b), float(c)) for a, b, c in unique],
-        dtype=np.int64,
-    )
+    tuples = [(float(a), float(b), float(c)) for a, b, c in unique]
+    new = [key for key in tuples if key not in _COUNT_CACHE]
+    if new:
+        if map_chunks is None or len(new) < _PARALLEL_MIN_FOOTPRINTS:
+            counted = _count_footprints(new)
+        else:
+            size = max(1, -(-len(new) // 16))
+            chunks = [new[i : i + size] for i in range(0, len(new), size)]
+            counted = [n for part in map_chunks(_count_footprints, chunks) for n in part]
+        _COUNT_CACHE.update(zip(new, counted, strict=True))
+    counts = np.array([_COUNT_CACHE[key] for key in tuples], dtype=np.int64)
     return counts[np.asarray(inverse).ravel()].reshape(r.shape)
 
 

@@ -125,8 +125,7 @@ def milp_search(
     timed_out = False
     relaxed: list[tuple[float, Columns, RelaxedBound]] = []
     unexplored: list[float] = []
-    # programs in order of their quick bound: relax, and while fewer than K designs are
-    # known, find incumbents with a small program over the least-reduced-cost columns
+    # programs in order of their quick bound: relax those that can still beat the threshold
     for quick, columns in programs:
         if not open_bound(quick):
             continue
@@ -135,25 +134,10 @@ def milp_search(
             unexplored.append(quick)
             continue
         bound = relax(columns)
-        if not bound.feasible or not open_bound(bound.value):
-            continue
-        relaxed.append((bound.value, columns, bound))
-        if len(exact) >= top:
-            continue
-        order = np.argsort(bound.reduced_cost, kind="stable")
-        keep = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
-        sub = build_subproblem(columns, keep)
-        for _ in range(top):
-            solve_round(sub, remaining())
-            price(sub)
-            if sub.current is None or out_of_time():
-                break
-            cut_current(sub)
+        if bound.feasible and open_bound(bound.value):
+            relaxed.append((bound.value, columns, bound))
     relaxed.sort(key=lambda item: item[0])
-    log.append(
-        f"{len(relaxed)} relaxations kept, {len(exact)} designs from screening, "
-        f"{time.perf_counter() - start:.2f} s"
-    )
+    log.append(f"{len(relaxed)} relaxations kept, {time.perf_counter() - start:.2f} s")
 
     subs: list[SubProblem] = []
     for value, columns, bound in relaxed:
@@ -163,6 +147,18 @@ def milp_search(
             timed_out = True
             unexplored.append(value)
             continue
+        # a small program over the least-reduced-cost columns tightens the threshold first,
+        # so that the screen below drops as many columns as possible
+        order = np.argsort(bound.reduced_cost, kind="stable")
+        few = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
+        if few.size < columns.n_cols:
+            scout = build_subproblem(columns, few)
+            for _ in range(top):
+                solve_round(scout, remaining())
+                price(scout)
+                if scout.current is None or out_of_time():
+                    break
+                cut_current(scout)
         limit = threshold() * (1 + REL_TOL) + 1e-6
         keep = np.flatnonzero(~(bound.at_zero & (value + bound.reduced_cost > limit)))
         sub = build_subproblem(columns, keep)
