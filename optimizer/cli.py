@@ -53,7 +53,11 @@ def fail(error: ProblemError) -> None:
 
 
 def _console() -> Console:
-    return Console(highlight=False)
+    # A terminal gets its own width; piped output gets a fixed, wide, plain layout.
+    console = Console(highlight=False)
+    if not console.is_terminal:
+        console = Console(highlight=False, width=120)
+    return console
 
 
 @app.command()

@@ -171,6 +171,15 @@ def evaluate_specs(
                 f"die '{spec.name}' area {area:.1f} mm^2 is outside the allowed range "
                 f"[{limits.min_die_area_mm2:g}, {limits.max_die_area_mm2:g}] mm^2"
             )
+    count = {b.name: b.count for b in problem.block}
+    for spec in specs:
+        for group in limits.keep_together:
+            shares = {spec.blocks.get(name, 0) / count[name] for name in group}
+            if len(shares) > 1:
+                violations.append(f"die '{spec.name}' splits keep_together group {group}")
+        for group in limits.keep_apart:
+            if sum(1 for name in group if spec.blocks.get(name, 0)) > 1:
+                violations.append(f"die '{spec.name}' joins keep_apart group {group}")
     n_dies = int(copies.sum())
     if n_dies > limits.max_dies:
         violations.append(f"{n_dies} dies exceed constraints.max_dies = {limits.max_dies}")

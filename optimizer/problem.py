@@ -331,9 +331,13 @@ def _first_error(exc: ValidationError, data: dict) -> tuple[str, str]:
     elif kind == "extra_forbidden":
         message = "is not a known field; check its spelling against the README"
     elif kind == "literal_error":
-        message = f"{message}"
+        expected = message.replace("Input should be ", "")
+        message = f"got {error.get('input')!r}; use one of {expected}"
     elif kind in {"greater_than_equal", "greater_than", "less_than_equal", "less_than"}:
-        message = f"{message} (got {error.get('input')!r})"
+        limit = message.replace("Input should be ", "")
+        message = f"must be {limit} (got {error.get('input')!r}); change the value"
+    elif kind.endswith("_type") or kind.endswith("_parsing"):
+        message = f"{message.replace('Input should be', 'must be')} (got {error.get('input')!r})"
     return field, message
 
 

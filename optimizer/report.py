@@ -114,6 +114,14 @@ def designs_overview(results: list[DesignResult]) -> Table:
     return table
 
 
+def _model_text(p) -> str:
+    if p.yield_model == "negative_binomial":
+        return f"negative_binomial (alpha {p.clustering_alpha:g})"
+    if p.yield_model == "bose_einstein":
+        return f"bose_einstein ({p.critical_layers} layers)"
+    return p.yield_model
+
+
 def problem_summary(problem: Problem, source: str) -> Group:
     """What the loader understood, in base units."""
     m = problem.market
@@ -127,34 +135,63 @@ def problem_summary(problem: Problem, source: str) -> Group:
         ),
     ]
     procs = Table(title="Processes (base units)", title_justify="left")
-    for col in ("name", "wafer mm", "edge mm", "scribe mm", "wafer cost", "D /cm^2", "model",
-                "Y0", "reticle mm", "masks", "sort", "coverage"):
-        procs.add_column(col)
+    procs.add_column("field")
     for p in problem.process:
-        model = p.yield_model
-        if p.clustering_alpha is not None and model == "negative_binomial":
-            model += f" (alpha {p.clustering_alpha:g})"
-        if p.critical_layers is not None and model == "bose_einstein":
-            model += f" ({p.critical_layers} layers)"
-        procs.add_row(
-            p.name, f"{p.wafer_diameter_mm:g}", f"{p.edge_exclusion_mm:g}", f"{p.scribe_width_mm:g}",
-            money(p.wafer_cost), f"{p.defect_density_per_cm2:g}", model, f"{p.systematic_yield:g}",
-            f"{p.reticle_width_mm:g} x {p.reticle_height_mm:g}", money(p.mask_set_cost),
-            money(p.sort_cost_per_die), f"{p.fault_coverage:g}",
-        )
+        procs.add_column(p.name, justify="right")
+    rows = {
+        "wafer diameter mm": [f"{p.wafer_diameter_mm:g}" for p in problem.process],
+        "edge exclusion mm": [f"{p.edge_exclusion_mm:g}" for p in problem.process],
+        "scribe width mm": [f"{p.scribe_width_mm:g}" for p in problem.process],
+        "wafer cost": [money(p.wafer_cost) for p in problem.process],
+        "defect density /cm^2": [f"{p.defect_density_per_cm2:g}" for p in problem.process],
+        "yield model": [_model_text(p) for p in problem.process],
+        "systematic yield": [f"{p.systematic_yield:g}" for p in problem.process],
+        "reticle field mm": [
+            f"{p.reticle_width_mm:g} x {p.reticle_height_mm:g}" for p in problem.process
+        ],
+        "mask set cost": [money(p.mask_set_cost) for p in problem.process],
+        "sort cost per die": [money(p.sort_cost_per_die) for p in problem.process],
+        "fault coverage": [f"{p.fault_coverage:g}" for p in problem.process],
+        "die count": [p.die_count for p in problem.process],
+        "area scale logic/memory/analog/io": [
+            "/".join(f"{p.area_scale.of(k):g}" for k in ("logic", "memory", "analog", "io"))
+            for p in problem.process
+        ],
+    }
+    for name, values in rows.items():
+        procs.add_row(name, *values)
     packs = Table(title="Packaging (base units)", title_justify="left")
-    for col in ("name", "kind", "max dies", "bond", "bond yield", "carrier", "package",
-                "final test", "GB/s per mm^2", "port mm^2", "design NRE"):
-        packs.add_column(col)
+    packs.add_column("field")
     for g in problem.packaging:
-        packs.add_row(
-            g.name, g.kind, str(g.max_dies), money(g.bond_cost_per_die), f"{g.bond_yield:g}",
-            money(g.carrier_cost) + (f" + interposer on {g.interposer_process}"
-                                     if g.kind == "silicon_interposer" else ""),
-            money(g.package_cost), money(g.final_test_cost),
-            f"{g.interface_density_gbps_per_mm2:g}" if g.interface_density_gbps_per_mm2 else "-",
-            f"{g.port_area_mm2:g}", money(g.design_cost),
-        )
+        packs.add_column(g.name, justify="right")
+    prow = {
+        "kind": [g.kind for g in problem.packaging],
+        "max dies": [str(g.max_dies) for g in problem.packaging],
+        "bond cost / yield": [
+            f"{money(g.bond_cost_per_die)} / {g.bond_yield:g}" for g in problem.packaging
+        ],
+        "carrier cost / yield": [
+            f"{money(g.carrier_cost)} / {g.carrier_yield:g}" for g in problem.packaging
+        ],
+        "interposer": [
+            f"on {g.interposer_process}, {g.interposer_area_factor:g} x dies + "
+            f"{g.interposer_extra_area_mm2:g} mm^2, max {g.interposer_max_area_mm2:g} mm^2"
+            if g.kind == "silicon_interposer" else "-"
+            for g in problem.packaging
+        ],
+        "package cost / yield": [
+            f"{money(g.package_cost)} / {g.package_yield:g}" for g in problem.packaging
+        ],
+        "final test cost": [money(g.final_test_cost) for g in problem.packaging],
+        "interface GB/s per mm^2": [
+            f"{g.interface_density_gbps_per_mm2:g}" if g.interface_density_gbps_per_mm2 else "-"
+            for g in problem.packaging
+        ],
+        "port area mm^2": [f"{g.port_area_mm2:g}" for g in problem.packaging],
+        "package design NRE": [money(g.design_cost) for g in problem.packaging],
+    }
+    for name, values in prow.items():
+        packs.add_row(name, *values)
     blocks = Table(title="Blocks (base units)", title_justify="left")
     for col in ("name", "kind", "area mm^2", "count", "sensitivity", "spares", "repair"):
         blocks.add_column(col)
@@ -201,7 +238,7 @@ def solution_view(solution) -> Group:
             ranked.add_column(col, justify="right" if col not in ("dies", "packaging") else "left")
         for i, d in enumerate(solution.designs, start=1):
             ranked.add_row(
-                str(i), short_design(d), d.packaging, money(d.cost_per_good_unit),
+                str(i), Text(short_design(d)), d.packaging, money(d.cost_per_good_unit),
                 money(d.profit), money(best.profit - d.profit),
             )
         parts.append(ranked)

@@ -36,8 +36,14 @@ CASES = [
     ),
     (
         "block_on_no_die",
-        [("blocks = { io = 1 }", "blocks = { compute = 0 }")],
-        ["design[split]"],
+        [("copies = 2\nblocks = { compute = 1 }", "copies = 1\nblocks = { compute = 1 }"),
+         ("blocks = { io = 1 }", "blocks = { compute = 1 }")],
+        ["design[split].die", "block 'io' is placed on no die"],
+    ),
+    (
+        "zero_instances",
+        [("blocks = { io = 1 }", "blocks = { io = 0 }")],
+        ["design[split].die[hub].blocks.io", "must be greater than or equal to 1"],
     ),
     (
         "block_placed_twice",
@@ -54,7 +60,7 @@ CASES = [
     (
         "unknown_yield_model",
         [('yield_model = "poisson"', 'yield_model = "gaussian"')],
-        ["process[cheap].yield_model"],
+        ["process[cheap].yield_model", "got 'gaussian'; use one of 'poisson'"],
     ),
 ]
 

@@ -25,7 +25,10 @@ solved by HiGHS), which keeps it small without losing any selection that could r
 
 from __future__ import annotations
 
+import contextlib
 import math
+import os
+import sys
 import time
 from dataclasses import dataclass, field
 
@@ -41,6 +44,24 @@ from optimizer.evaluator import Evaluator
 from optimizer.problem import Packaging
 from optimizer.solver.candidates import CandidateSet
 from optimizer.solver.selection import Selection
+
+
+@contextlib.contextmanager
+def _stdout_silenced():
+    """Silence file descriptor 1: HiGHS prints a banner from C++ on its first use."""
+    sys.stdout.flush()
+    saved = os.dup(1)
+    try:
+        with open(os.devnull, "w") as devnull:
+            os.dup2(devnull.fileno(), 1)
+            yield
+    finally:
+        os.dup2(saved, 1)
+        os.close(saved)
+
+
+with _stdout_silenced():
+    highspy.Highs()  # the first instance prints the banner; later ones are quiet
 
 
 def carrier_underestimator(
