@@ -75,11 +75,18 @@ def solve(
     method: str = "milp",
     time_limit: float | None = None,
     source: str = "<problem>",
+    candidate_cache: dict | None = None,
 ) -> Solution:
-    """Find the most profitable design(s) over every admissible choice in the problem."""
+    """Find the most profitable design(s) over every admissible choice in the problem.
+
+    ``candidate_cache`` (a dict the caller keeps) lets several solves of problems that
+    differ only in the market section share their priced candidate dies.
+    """
     evaluator = Evaluator(problem)
     if method == "milp":
-        outcome: SearchOutcome = milp_search(evaluator, top=top, time_limit=time_limit)
+        outcome: SearchOutcome = milp_search(
+            evaluator, top=top, time_limit=time_limit, candidate_cache=candidate_cache
+        )
     elif method == "exhaustive":
         outcome = exhaustive_search(evaluator, top=top)
     else:

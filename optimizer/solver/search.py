@@ -58,7 +58,11 @@ def _kth(values: list[float], k: int) -> float:
 
 
 def milp_search(
-    evaluator: Evaluator, top: int = 1, time_limit: float | None = None, screen_columns: int = 200
+    evaluator: Evaluator,
+    top: int = 1,
+    time_limit: float | None = None,
+    screen_columns: int = 200,
+    candidate_cache: dict | None = None,
 ) -> SearchOutcome:
     """Proven top-``top`` designs by integer programming with exact verification.
 
@@ -72,11 +76,15 @@ def milp_search(
     market = problem.market
     revenue = market.unit_price * market.volume
     log: list[str] = []
-    contents = enumerate_contents(evaluator)
+    # Candidate dies do not depend on the market section: scenarios that differ only there
+    # (price, volume) can share one priced candidate table through ``candidate_cache``.
+    key = (problem.model_dump_json(exclude={"market", "design", "title", "note"}), top)
+    cached = candidate_cache.get(key) if candidate_cache is not None else None
+    contents = enumerate_contents(evaluator) if cached is None else None
     candidates: dict[int, CandidateSet] = {}
     programs: list[tuple[float, Columns]] = []
     for g, packaging in enumerate(problem.packaging):
-        cset = build_candidates(evaluator, g, contents, depth=top)
+        cset = cached[g] if cached is not None else build_candidates(evaluator, g, contents, depth=top)
         candidates[g] = cset
         log.append(f"packaging {packaging.name}: {len(cset)} candidate dies after pruning")
         n_max = min(packaging.max_dies, problem.constraints.max_dies)
@@ -85,6 +93,8 @@ def milp_search(
             if columns is not None:
                 programs.append((columns.quick_bound(), columns))
     programs.sort(key=lambda item: item[0])
+    if candidate_cache is not None:
+        candidate_cache[key] = candidates
     log.append(f"{len(programs)} (packaging, die count) programs in {time.perf_counter() - start:.2f} s")
 
     exact: dict[Selection, float] = {}
