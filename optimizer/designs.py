@@ -8,6 +8,7 @@ soft limits from the constraints section are listed as violations.
 
 from __future__ import annotations
 
+import math
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -26,6 +27,9 @@ class DieSpec:
     repair: dict[str, int]
     copies: int = 1
     name: str = ""
+    defect_density_per_cm2: float | None = None  # None: the process's base density
+    sigma_margin: float | None = None  # None: no design margin modelled (no soft loss)
+    critical_area_option: int = 0
 
     def key(self) -> tuple:
         return (
@@ -33,6 +37,9 @@ class DieSpec:
             tuple(sorted(self.blocks.items())),
             tuple(sorted((k, v) for k, v in self.spares.items() if v)),
             tuple(sorted((k, v) for k, v in self.repair.items() if v)),
+            self.defect_density_per_cm2,
+            self.sigma_margin,
+            self.critical_area_option,
         )
 
 
@@ -44,6 +51,9 @@ class DieResult:
     blocks: dict[str, int]
     spares: dict[str, int]
     repair: dict[str, int]
+    defect_density_per_cm2: float
+    sigma_margin: float
+    critical_area_option: int
     area_mm2: float
     width_mm: float
     height_mm: float
@@ -77,9 +87,12 @@ class DesignResult:
     cost_per_good_unit: float
     breakdown: dict[str, float]
     nre: float
+    improvement_spend: float
     unit_price: float
     volume: float
     revenue: float
+    salvage_units: dict[str, float]
+    salvage_revenue: float
     profit: float
     margin: float
     breakeven_volume: float
@@ -100,6 +113,9 @@ def specs_from_design(design: Design) -> list[DieSpec]:
             repair=dict(die.repair),
             copies=die.copies,
             name=die.name or f"die{j + 1}",
+            defect_density_per_cm2=design.defect_targets.get(die.process),
+            sigma_margin=die.sigma_margin,
+            critical_area_option=die.critical_area_option,
         )
         if spec.key() in merged:
             old = merged[spec.key()]
@@ -119,13 +135,52 @@ def die_batch(evaluator: Evaluator, specs: list[DieSpec], packaging_index: int) 
             for name, value in table.items():
                 target[i, problem.block_index(name)] = value
     packaging = problem.packaging[packaging_index]
+    choices = np.array([die_choices(problem, spec) for spec in specs], dtype=float).reshape(-1, 7)
     return DieBatch(
         process=np.array([problem.process_index(s.process) for s in specs], dtype=np.int64),
         instances=instances,
         spares=spares,
         repairs=repairs,
         interface_area_mm2=evaluator.interface_area_mm2(instances, packaging),
+        defect_density_per_cm2=choices[:, 0],
+        wafer_cost_adder=choices[:, 1],
+        improvement_one_time=choices[:, 2],
+        sigma_margin=choices[:, 3],
+        margin_overhead=choices[:, 4],
+        sensitivity_factor=choices[:, 5],
+        critical_overhead=choices[:, 6],
     )
+
+
+def die_choices(problem, spec: DieSpec) -> tuple[float, ...]:
+    """Numbers behind a die's choices: (D target, per-wafer adder, one-time cost,
+    sigma margin, margin area overhead, sensitivity factor, critical-area overhead)."""
+    process = problem.process[problem.process_index(spec.process)]
+    base = process.defect_density_per_cm2
+    density = base if spec.defect_density_per_cm2 is None else spec.defect_density_per_cm2
+    adder = one_time = 0.0
+    if density < base * (1 - 1e-12):
+        curve = process.defect_reduction
+        if curve is None:
+            raise ValueError(f"process '{process.name}' has no defect_reduction curve")
+        if curve.form == "log_ratio":
+            _, one_time, adder = process.improvement_cost(density)
+        else:
+            match = [p for p in process.defect_targets() if abs(p[0] - density) <= 1e-9 * base]
+            if not match:
+                raise ValueError(
+                    f"defect target {density:g} /cm^2 is not a point of process "
+                    f"'{process.name}' defect_reduction table"
+                )
+            _, one_time, adder = match[0]
+    sigma = math.inf if spec.sigma_margin is None else spec.sigma_margin
+    overhead = 0.0
+    if math.isfinite(sigma) and process.margin is not None:
+        overhead = float(np.interp(sigma, process.margin.sigma, process.margin.area_overhead))
+    sens, crit_overhead = 1.0, 0.0
+    if problem.critical_area_reduction is not None:
+        sens, crit_overhead = problem.critical_area_reduction.options()[spec.critical_area_option]
+    return (density, adder, one_time, sigma, overhead, sens, crit_overhead)
 
 
 def evaluate_specs(
@@ -191,6 +246,9 @@ def evaluate_specs(
             blocks=dict(spec.blocks),
             spares={k: v for k, v in spec.spares.items() if v},
             repair={k: v for k, v in spec.repair.items() if v},
+            defect_density_per_cm2=float(prices.defect_density_per_cm2[i]),
+            sigma_margin=float(prices.sigma_margin[i]),
+            critical_area_option=spec.critical_area_option,
             area_mm2=float(prices.area_mm2[i]),
             width_mm=float(prices.width_mm[i]),
             height_mm=float(prices.height_mm[i]),
@@ -211,6 +269,14 @@ def evaluate_specs(
     market = problem.market
     unit_margin = market.unit_price - float(product.manufacturing_cost_per_good_unit[0])
     profit = float(product.profit[0])
+    if not product.targets_consistent[0]:
+        raise ProblemError(
+            source,
+            f"{where}.defect_targets",
+            "dies on one process use different defect-density targets; one fab line has one "
+            "target, so give each process one target",
+        )
+    one_time = float(product.nre[0] + product.improvement_spend[0])
     return DesignResult(
         design=design_name,
         packaging=packaging.name,
@@ -225,12 +291,17 @@ def evaluate_specs(
         cost_per_good_unit=float(product.cost_per_good_unit[0]),
         breakdown={name: float(getattr(product, name)[0]) for name in COST_COMPONENTS},
         nre=float(product.nre[0]),
+        improvement_spend=float(product.improvement_spend[0]),
         unit_price=market.unit_price,
         volume=market.volume,
         revenue=float(product.revenue[0]),
+        salvage_units={
+            b.name: float(product.salvage_units[0, j]) for j, b in enumerate(market.salvage_bin)
+        },
+        salvage_revenue=float(product.salvage_revenue[0]),
         profit=profit,
         margin=profit / float(product.revenue[0]),
-        breakeven_volume=float(product.nre[0]) / unit_margin if unit_margin > 0 else float("inf"),
+        breakeven_volume=one_time / unit_margin if unit_margin > 0 else float("inf"),
         violations=violations,
     )
 

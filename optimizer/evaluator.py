@@ -18,11 +18,18 @@ import atexit
 import multiprocessing
 import os
 from concurrent.futures import ProcessPoolExecutor
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
-from optimizer.formulas import assembly, defect_mixture, fault_coverage, redundancy, wafer
+from optimizer.formulas import (
+    assembly,
+    defect_mixture,
+    fault_coverage,
+    parametric,
+    redundancy,
+    wafer,
+)
 from optimizer.problem import Packaging, Problem, Process
 from optimizer.tables import BlockTable, LinkTable, block_table, link_table
 
@@ -35,6 +42,9 @@ class DieBatch:
 
     instances, spares and repairs are (n, B) integer arrays over the problem's blocks:
     block instances carried, spare instances added, and array repairs per instance.
+    The optional per-die choices default to the process as stated: its base defect
+    density and wafer cost, no design margin (no parametric loss) and no critical-area
+    reduction.
     """
 
     process: np.ndarray
@@ -42,22 +52,35 @@ class DieBatch:
     spares: np.ndarray
     repairs: np.ndarray
     interface_area_mm2: np.ndarray
-    sigma_margin: np.ndarray | None = None  # design margin per die; None means no soft loss
+    defect_density_per_cm2: np.ndarray | None = None  # chosen defect-density target
+    wafer_cost_adder: np.ndarray | None = None  # per-wafer cost of reaching that target
+    improvement_one_time: np.ndarray | None = None  # one-time cost of that target (per process)
+    sigma_margin: np.ndarray | None = None  # design margin [sigma]; inf = no parametric loss
+    margin_overhead: np.ndarray | None = None  # block-area fraction the margin costs
+    sensitivity_factor: np.ndarray | None = None  # critical-area reduction option
+    critical_overhead: np.ndarray | None = None  # block-area fraction that option costs
 
     def __len__(self) -> int:
         return int(self.process.shape[0])
+
+    def column(self, name: str, default: float) -> np.ndarray:
+        value = getattr(self, name)
+        return np.full(len(self), default, dtype=float) if value is None else value
 
 
 @dataclass(frozen=True)
 class DiePrices:
     """Everything known about each priced die (arrays of the batch length)."""
 
+    process: np.ndarray
     area_mm2: np.ndarray
     width_mm: np.ndarray
     height_mm: np.ndarray
     interface_area_mm2: np.ndarray
     fits_reticle: np.ndarray
     gross_dies_per_wafer: np.ndarray
+    defect_density_per_cm2: np.ndarray
+    sigma_margin: np.ndarray
     log_hard_yield: np.ndarray
     log_soft_yield: np.ndarray
     log_die_yield: np.ndarray
@@ -69,6 +92,8 @@ class DiePrices:
     sort_cost: np.ndarray
     cost_per_passed_die: np.ndarray
     nre: np.ndarray
+    improvement_one_time: np.ndarray
+    salvage_per_good: np.ndarray  # (n, bins): salvage-bin dies per full-spec die
 
     def take(self, index: np.ndarray) -> DiePrices:
         return DiePrices(**{k: getattr(self, k)[index] for k in self.__dataclass_fields__})
@@ -107,8 +132,19 @@ class Evaluator:
         """Price every die of ``batch`` exactly (see module docstring)."""
         n = len(batch)
         blocks = self.blocks
+        bins = self.problem.market.salvage_bin
         out = {name: np.empty(n) for name in DiePrices.__dataclass_fields__}
         out["fits_reticle"] = np.empty(n, dtype=bool)
+        out["process"] = np.asarray(batch.process, dtype=np.int64)
+        out["salvage_per_good"] = np.zeros((n, len(bins)))
+        density_all = batch.column("defect_density_per_cm2", np.nan)
+        adder_all = batch.column("wafer_cost_adder", 0.0)
+        one_time_all = batch.column("improvement_one_time", 0.0)
+        sigma_all = batch.column("sigma_margin", np.inf)
+        growth_all = (1 + batch.column("margin_overhead", 0.0)) * (
+            1 + batch.column("critical_overhead", 0.0)
+        )
+        sens_all = batch.column("sensitivity_factor", 1.0)
         for p_index, process in enumerate(self.problem.process):
             rows = np.flatnonzero(batch.process == p_index)
             if rows.size == 0:
@@ -116,63 +152,78 @@ class Evaluator:
             q = batch.instances[rows]
             s = batch.spares[rows]
             r = batch.repairs[rows]
+            growth = growth_all[rows]
+            density = np.where(
+                np.isnan(density_all[rows]), process.defect_density_per_cm2, density_all[rows]
+            )
             unit_area = blocks.area_mm2 * blocks.scale[p_index]  # (B,)
             block_area = (q + s) * unit_area + q * r * blocks.area_per_repair_mm2
             interface = batch.interface_area_mm2[rows]
-            area = block_area.sum(axis=1) + interface
+            area = block_area.sum(axis=1) * growth + interface
             width, height = die_shape_mm(area, process)
             gross = gross_dies(process, width, height)
             fits = _fits_field(width, height, process)
-            log_hard = self._log_hard_yield(process, p_index, q, s, r, interface)
-            if batch.sigma_margin is None:
-                log_soft = np.zeros(rows.size)
-            else:
-                log_soft = _log_soft_yield(batch.sigma_margin[rows])
+            # critical area of one unit of each block on each die [cm^2]
+            unit_crit = (
+                (blocks.area_mm2 * blocks.scale[p_index] * blocks.defect_sensitivity)[None, :]
+                * (growth * sens_all[rows])[:, None]
+                / MM2_PER_CM2
+            )
+            log_hard, salvage = self._log_hard_yield(
+                process, q, s, r, interface, unit_crit, density
+            )
+            two_sided = process.margin.two_sided if process.margin is not None else True
+            log_soft = parametric.log_parametric_yield(sigma_all[rows], two_sided=two_sided)
             log_y = log_hard + log_soft
             coverage = process.fault_coverage
-            raw = _per_die(process.wafer_cost, gross)
+            raw = _per_die(process.wafer_cost + adder_all[rows], gross)
             repair_test = ((q * (r > 0)) > 0).astype(float) @ blocks.repair_test_cost
             sort = process.sort_cost_per_die + repair_test
+            log_pass = fault_coverage.log_pass_fraction(log_y, coverage)
             out["area_mm2"][rows] = area
             out["width_mm"][rows] = width
             out["height_mm"][rows] = height
             out["interface_area_mm2"][rows] = interface
             out["fits_reticle"][rows] = fits
             out["gross_dies_per_wafer"][rows] = gross
+            out["defect_density_per_cm2"][rows] = density
+            out["sigma_margin"][rows] = sigma_all[rows]
             out["log_hard_yield"][rows] = log_hard
             out["log_soft_yield"][rows] = log_soft
             out["log_die_yield"][rows] = log_y
             out["die_yield"][rows] = np.exp(log_y)
-            out["pass_fraction"][rows] = np.exp(fault_coverage.log_pass_fraction(log_y, coverage))
+            out["pass_fraction"][rows] = np.exp(log_pass)
             out["log1m_defect_level"][rows] = fault_coverage.log1m_defect_level_from_log(
                 log_y, coverage
             )
             out["defect_level"][rows] = -np.expm1(out["log1m_defect_level"][rows])
             out["raw_cost"][rows] = raw
             out["sort_cost"][rows] = sort
-            out["cost_per_passed_die"][rows] = (raw + sort) * np.exp(
-                -fault_coverage.log_pass_fraction(log_y, coverage)
-            )
+            with np.errstate(over="ignore"):
+                out["cost_per_passed_die"][rows] = (raw + sort) * np.exp(-log_pass)
             design = self.problem.design_cost
             out["nre"][rows] = process.mask_set_cost + design.per_die_design + design.per_mm2 * area
+            out["improvement_one_time"][rows] = one_time_all[rows]
+            out["salvage_per_good"][rows] = salvage
         return DiePrices(**out)
 
     def _log_hard_yield(
         self,
         process: Process,
-        p_index: int,
         q: np.ndarray,
         s: np.ndarray,
         r: np.ndarray,
         interface_mm2: np.ndarray,
-    ) -> np.ndarray:
-        """log of systematic x defect-limited yield, clustering through the D mixture."""
+        unit_crit: np.ndarray,
+        density: np.ndarray,
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """log of systematic x defect-limited yield, clustering through the D mixture.
+
+        Also returns, per salvage bin, the dies that fall in that bin per full-spec die.
+        """
         blocks = self.blocks
-        unit_crit_cm2 = blocks.area_mm2 * blocks.scale[p_index] * blocks.defect_sensitivity
-        unit_crit_cm2 = unit_crit_cm2 / MM2_PER_CM2  # (B,)
         redundant = (s > 0) | ((r > 0) & (q > 0))
-        plain_cm2 = (q * ~redundant) @ unit_crit_cm2 + interface_mm2 / MM2_PER_CM2
-        d0 = process.defect_density_per_cm2
+        plain_cm2 = (q * ~redundant * unit_crit).sum(axis=1) + interface_mm2 / MM2_PER_CM2
         params = dict(
             clustering_alpha=process.clustering_alpha, critical_layers=process.critical_layers
         )
@@ -180,39 +231,72 @@ class Evaluator:
         simple = ~redundant.any(axis=1)
         if simple.any():
             log_y[simple] = defect_mixture.log_mixed_yield(
-                process.yield_model, d0, plain_cm2[simple], None, **params
+                process.yield_model, density[simple], plain_cm2[simple], None, **params
             )
         complex_rows = np.flatnonzero(~simple)
-        if complex_rows.size:
-            qc, sc, rc = q[complex_rows], s[complex_rows], r[complex_rows]
-            red_rows = redundant[complex_rows]
+        fraction = blocks.repairable_fraction
+
+        def mixed(rows: np.ndarray, needed_override: dict[int, np.ndarray]) -> np.ndarray:
+            qc, sc, rc = q[rows], s[rows], r[rows]
+            red_rows = redundant[rows]
+            crit = unit_crit[rows]
             red_blocks = np.flatnonzero(red_rows.any(axis=0))
-            fraction = blocks.repairable_fraction
 
             def log_factor(d: np.ndarray) -> np.ndarray:
-                # d: (m, nodes) or (nodes,). Each redundant block: k-of-n over units whose own yield
-                # includes array repair when the die carries repair for that block.
+                # d: (m, nodes) or (nodes,). Each redundant block: k-of-n over units whose
+                # own yield includes array repair when the die carries repair for it.
                 total = np.zeros(np.broadcast_shapes(d.shape, (len(qc), 1)))
                 for b in red_blocks:
-                    needed = qc[:, b][:, None]
-                    spare = sc[:, b][:, None]
+                    total_units = (qc[:, b] + sc[:, b])[:, None]
+                    needed = needed_override.get(b, qc[:, b])[:, None]
                     repairs = rc[:, b][:, None]
-                    a = unit_crit_cm2[b]
+                    a = crit[:, b][:, None]
                     log_unit = np.where(
                         repairs > 0,
                         redundancy.log_array_repair_factor(a, d, fraction[b], repairs),
                         -a * d,
                     )
                     # a unit of yield y behaves as one with exp(-a D) = y, i.e. a D = -log y
-                    factor_b = redundancy.log_spare_unit_factor(-log_unit, 1.0, needed, spare)
+                    factor_b = redundancy.log_spare_unit_factor(
+                        -log_unit, 1.0, needed, total_units - needed
+                    )
                     # blocks without redundancy on this die are already in the plain area
                     total += np.where(red_rows[:, b][:, None], factor_b, 0.0)
                 return total
 
-            log_y[complex_rows] = defect_mixture.log_mixed_yield(
-                process.yield_model, d0, plain_cm2[complex_rows], log_factor, **params
+            return defect_mixture.log_mixed_yield(
+                process.yield_model, density[rows], plain_cm2[rows], log_factor, **params
             )
-        return log_y + np.log(process.systematic_yield)
+
+        if complex_rows.size:
+            log_y[complex_rows] = mixed(complex_rows, {})
+        salvage = np.zeros((q.shape[0], len(self.problem.market.salvage_bin)))
+        for j, b_lo, m_lo, m_hi in self._salvage_bands():
+            # dies with every instance of the bin's block, whose spares make a band possible
+            rows = np.flatnonzero(
+                (q[:, b_lo] == blocks.count[b_lo]) & redundant[:, b_lo] & (q[:, b_lo] > m_lo)
+            )
+            if rows.size == 0:
+                continue
+            upper = q[rows, b_lo] if m_hi is None else np.minimum(m_hi, q[rows, b_lo])
+            at_least_lo = mixed(rows, {b_lo: np.full(rows.size, m_lo)})
+            at_least_hi = mixed(rows, {b_lo: upper})
+            band = np.exp(at_least_lo) - np.exp(at_least_hi)
+            salvage[rows, j] = np.maximum(band, 0.0) / np.exp(log_y[rows])
+        return log_y + np.log(process.systematic_yield), salvage
+
+    def _salvage_bands(self) -> list[tuple[int, int, int, int | None]]:
+        """(bin index, block index, lowest good units, first count of the bin above).
+
+        Bins on one block are nested by min_good: a die falls in the best bin it meets.
+        """
+        bands = []
+        bins = self.problem.market.salvage_bin
+        for j, sbin in enumerate(bins):
+            b = self.problem.block_index(sbin.block)
+            higher = [o.min_good for o in bins if o.block == sbin.block and o.min_good > sbin.min_good]
+            bands.append((j, b, sbin.min_good, min(higher) if higher else None))
+        return bands
 
     # ------------------------------------------------------------------ carrier
     def carrier_cost(self, packaging: Packaging, total_die_area_mm2: np.ndarray) -> CarrierPrice:
@@ -264,7 +348,8 @@ class Evaluator:
         bond = n_dies * packaging.bond_cost_per_die
         before_scrap = dies_cost + carrier.cost + bond + packaging.package_cost
         before_scrap = before_scrap + packaging.final_test_cost
-        per_good = before_scrap * np.exp(-log_p)
+        with np.errstate(over="ignore", invalid="ignore"):
+            per_good = before_scrap * np.exp(-log_p)
 
         raw = copies * np.where(used, pick.raw_cost, 0.0)
         interface_share = np.where(used, pick.interface_area_mm2 / pick.area_mm2, 0.0)
@@ -272,11 +357,15 @@ class Evaluator:
         interface = (raw * interface_share).sum(axis=1)
         sort = (copies * np.where(used, pick.sort_cost, 0.0)).sum(axis=1)
         die_scrap = dies_cost - silicon - interface - sort
-        package_scrap = per_good - before_scrap
+        with np.errstate(invalid="ignore"):
+            package_scrap = per_good - before_scrap
         nre = (np.where(used, pick.nre, 0.0)).sum(axis=1) + packaging.design_cost
+        spend, consistent = self._improvement_spend(pick, used)
         market = self.problem.market
+        salvage_units, salvage_revenue = self._salvage(packaging, pick, used, n_dies)
         revenue = market.unit_price * market.volume
-        profit = revenue - market.volume * per_good - nre
+        feasible = carrier.feasible & consistent
+        profit = revenue + salvage_revenue - market.volume * per_good - nre - spend
         return ProductPrices(
             packaging_index=packaging_index,
             slot_die=slot_die,
@@ -284,7 +373,8 @@ class Evaluator:
             n_dies=n_dies,
             total_die_area_mm2=total_area,
             carrier_area_mm2=carrier.area_mm2,
-            carrier_feasible=carrier.feasible,
+            carrier_feasible=feasible,
+            targets_consistent=consistent,
             log_package_yield=log_p,
             package_yield=np.exp(log_p),
             manufacturing_cost_per_good_unit=per_good,
@@ -298,10 +388,61 @@ class Evaluator:
             package_scrap=package_scrap,
             nre=nre,
             nre_per_unit=nre / market.volume,
-            cost_per_good_unit=per_good + nre / market.volume,
+            improvement_spend=spend,
+            improvement_per_unit=spend / market.volume,
+            cost_per_good_unit=per_good + (nre + spend) / market.volume,
             revenue=np.full(n_dies.shape, revenue),
-            profit=profit,
+            salvage_units=salvage_units,
+            salvage_revenue=salvage_revenue,
+            profit=np.where(feasible, profit, -np.inf),
         )
+
+    def _improvement_spend(self, pick: DiePrices, used: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """One-time yield-improvement spend per product, and whether targets agree.
+
+        A process has one defect-density target per product (one fab line): its one-time
+        cost is paid once, and two dies on one process with different targets are not a
+        valid product.
+        """
+        spend = np.zeros(used.shape[0])
+        consistent = np.ones(used.shape[0], dtype=bool)
+        for p in range(len(self.problem.process)):
+            on_p = used & (pick.process == p)
+            if not on_p.any():
+                continue
+            d_hi = np.where(on_p, pick.defect_density_per_cm2, -np.inf).max(axis=1)
+            d_lo = np.where(on_p, pick.defect_density_per_cm2, np.inf).min(axis=1)
+            consistent &= ~on_p.any(axis=1) | (d_hi - d_lo <= 1e-12 * np.abs(d_hi))
+            spend += np.where(on_p, pick.improvement_one_time, 0.0).max(axis=1, initial=0.0)
+        return spend, consistent
+
+    def _salvage(
+        self, packaging: Packaging, pick: DiePrices, used: np.ndarray, n_dies: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """Units sold in salvage bins and their net revenue (one-die products only).
+
+        Each bin takes the dies of its band, up to its demand; a salvage unit still pays
+        its package, carrier, bond and final test, scrapped packages included.
+        """
+        bins = self.problem.market.salvage_bin
+        k = used.shape[0]
+        units = np.zeros((k, len(bins)))
+        if not bins:
+            return units, np.zeros(k)
+        market = self.problem.market
+        one_die = n_dies == 1
+        ratio = np.where(used[:, :, None], pick.salvage_per_good, 0.0).sum(axis=1)
+        demand = np.array([b.demand for b in bins])
+        units = np.where(one_die[:, None], np.minimum(market.volume * ratio, demand), 0.0)
+        unit_cost = (
+            packaging.package_cost
+            + packaging.final_test_cost
+            + packaging.bond_cost_per_die
+            + packaging.carrier_cost
+        ) / (packaging.package_yield * packaging.carrier_yield * packaging.bond_yield)
+        prices = np.array([b.unit_price for b in bins])
+        revenue = (units * np.maximum(prices - unit_cost, 0.0)).sum(axis=1)
+        return units, revenue
 
 
 @dataclass(frozen=True)
@@ -319,7 +460,9 @@ class ProductPrices:
 
     Cost components are per good unit and add up to ``manufacturing_cost_per_good_unit``:
     silicon + interface + sort_test + die_scrap + carrier + assembly + final_test +
-    package_scrap. ``cost_per_good_unit`` adds the NRE share (nre / volume).
+    package_scrap. ``cost_per_good_unit`` adds the NRE and yield-improvement shares
+    (one-time costs / volume). Profit = revenue + salvage revenue - volume x
+    manufacturing cost - NRE - improvement spend (minus infinity for an invalid product).
     """
 
     packaging_index: int
@@ -329,6 +472,7 @@ class ProductPrices:
     total_die_area_mm2: np.ndarray
     carrier_area_mm2: np.ndarray
     carrier_feasible: np.ndarray
+    targets_consistent: np.ndarray
     log_package_yield: np.ndarray
     package_yield: np.ndarray
     manufacturing_cost_per_good_unit: np.ndarray
@@ -342,10 +486,13 @@ class ProductPrices:
     package_scrap: np.ndarray
     nre: np.ndarray
     nre_per_unit: np.ndarray
+    improvement_spend: np.ndarray
+    improvement_per_unit: np.ndarray
     cost_per_good_unit: np.ndarray
     revenue: np.ndarray
+    salvage_units: np.ndarray
+    salvage_revenue: np.ndarray
     profit: np.ndarray
-    extras: dict = field(default_factory=dict)
 
 
 COST_COMPONENTS = (
@@ -358,6 +505,7 @@ COST_COMPONENTS = (
     "final_test",
     "package_scrap",
     "nre_per_unit",
+    "improvement_per_unit",
 )
 
 
@@ -423,9 +571,3 @@ def _fits_field(width: np.ndarray, height: np.ndarray, process: Process) -> np.n
     upright = (width <= rw + tol) & (height <= rh + tol)
     turned = (width <= rh + tol) & (height <= rw + tol)
     return upright | turned
-
-
-def _log_soft_yield(sigma_margin: np.ndarray) -> np.ndarray:
-    from optimizer.formulas import parametric
-
-    return parametric.log_parametric_yield(sigma_margin, two_sided=True)

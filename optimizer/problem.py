@@ -13,6 +13,7 @@ import tomllib
 from pathlib import Path
 from typing import Annotated, Literal
 
+import numpy as np
 from pydantic import (
     BaseModel,
     BeforeValidator,
@@ -84,12 +85,23 @@ class _Section(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
 
+class SalvageBin(_Section):
+    """A lower bin: one-die products that miss full spec but keep enough good units."""
+
+    name: str
+    block: str
+    min_good: Annotated[int, Field(ge=0)]
+    unit_price: Annotated[float, Field(gt=0)]
+    demand: Annotated[float, Field(ge=0)]
+
+
 class Market(_Section):
     """What the product sells for and how many good units the market takes."""
 
     currency: str = "USD"
     unit_price: Annotated[float, Field(gt=0)]
     volume: Annotated[float, Field(gt=0)]
+    salvage_bin: list[SalvageBin] = Field(default_factory=list)
 
 
 class Constraints(_Section):
@@ -120,6 +132,53 @@ class AreaScale(_Section):
         return float(getattr(self, kind))
 
 
+class DefectReduction(_Section):
+    """What lowering this process's defect density costs (a yield-improvement curve).
+
+    ``log_ratio``: one-time cost one_time_per_log x ln(D_base / D) and a per-wafer adder
+    per_wafer_per_log x ln(D_base / D), for any target D in [floor, D_base]; the solver
+    tries ``levels`` targets spaced geometrically and refines the winner's continuously.
+    ``table``: the listed targets only, each [defect density, one-time cost, per-wafer adder].
+    """
+
+    form: Literal["log_ratio", "table"]
+    floor_per_cm2: DefectDensityPerCm2 | None = Field(default=None, alias="floor")
+    one_time_per_log: Money = 0.0
+    per_wafer_per_log: Money = 0.0
+    levels: Annotated[int, Field(ge=2, le=64)] = 4
+    points: list[tuple[str, float, float]] = Field(default_factory=list)
+
+    @model_validator(mode="after")
+    def _form_fields(self) -> DefectReduction:
+        if self.form == "log_ratio" and self.floor_per_cm2 is None:
+            raise ValueError("form 'log_ratio' needs floor, the lowest reachable defect density")
+        if self.form == "table" and not self.points:
+            raise ValueError(
+                "form 'table' needs points = [[\"0.08 /cm^2\", one_time, per_wafer], ...]"
+            )
+        return self
+
+    def table(self) -> list[tuple[float, float, float]]:
+        """Points as (defect density per cm^2, one-time cost, per-wafer adder)."""
+        return [(to_base(d, DEFECT_DENSITY), float(a), float(b)) for d, a, b in self.points]
+
+
+class MarginCurve(_Section):
+    """Design margin (sigma) against the die-area overhead it costs."""
+
+    two_sided: bool = True
+    sigma: list[Annotated[float, Field(gt=0)]] = Field(min_length=1)
+    area_overhead: list[Annotated[float, Field(ge=0)]] = Field(min_length=1)
+
+    @model_validator(mode="after")
+    def _same_length(self) -> MarginCurve:
+        if len(self.sigma) != len(self.area_overhead):
+            raise ValueError("sigma and area_overhead need the same number of entries")
+        if any(b <= a for a, b in zip(self.sigma, self.sigma[1:], strict=False)):
+            raise ValueError("sigma values must increase")
+        return self
+
+
 class Process(_Section):
     """One process option: wafer, defect density, yield model, test and one-time costs."""
 
@@ -146,6 +205,8 @@ class Process(_Section):
     # "exact": whole sites on the wafer; "formula": the classic approximation, floored;
     # "area_ratio": usable area / site area, no edge loss (idealised studies and checks).
     die_count: Literal["exact", "formula", "area_ratio"] = "exact"
+    defect_reduction: DefectReduction | None = None
+    margin: MarginCurve | None = None
 
     @model_validator(mode="after")
     def _model_parameters(self) -> Process:
@@ -157,7 +218,55 @@ class Process(_Section):
             raise ValueError("yield_model 'bose_einstein' needs critical_layers (an integer)")
         if 2 * self.edge_exclusion_mm >= self.wafer_diameter_mm:
             raise ValueError("edge_exclusion leaves no usable wafer; make it smaller")
+        curve = self.defect_reduction
+        if curve is not None and curve.form == "log_ratio":
+            if not 0 < curve.floor_per_cm2 <= self.defect_density_per_cm2:
+                raise ValueError(
+                    "defect_reduction.floor must be above 0 and at most defect_density"
+                )
+        if curve is not None and curve.form == "table":
+            try:
+                points = curve.table()
+            except UnitError as exc:
+                raise ValueError(f"defect_reduction.points: {exc}") from None
+            if any(d > self.defect_density_per_cm2 or d <= 0 for d, _, _ in points):
+                raise ValueError(
+                    "defect_reduction.points must lie in (0, defect_density]; the base "
+                    "density is always available at no cost"
+                )
         return self
+
+    def defect_targets(self) -> list[tuple[float, float, float]]:
+        """Targets the solver may choose: (defect density, one-time cost, per-wafer adder).
+
+        The first is always the base density at no cost.
+        """
+        base = self.defect_density_per_cm2
+        curve = self.defect_reduction
+        targets = [(base, 0.0, 0.0)]
+        if curve is None:
+            return targets
+        if curve.form == "table":
+            extra = sorted(
+                (p for p in curve.table() if p[0] < base), key=lambda p: -p[0]
+            )
+            return targets + extra
+        densities = base * (curve.floor_per_cm2 / base) ** (
+            np.arange(1, curve.levels) / (curve.levels - 1)
+        )
+        return targets + [self.improvement_cost(d) for d in densities]
+
+    def improvement_cost(self, density: float) -> tuple[float, float, float]:
+        """(density, one-time cost, per-wafer adder) on a log_ratio curve."""
+        curve = self.defect_reduction
+        ratio = math.log(self.defect_density_per_cm2 / density)
+        return (density, curve.one_time_per_log * ratio, curve.per_wafer_per_log * ratio)
+
+    def margin_options(self) -> list[tuple[float, float]]:
+        """(sigma margin, area overhead fraction) choices; inf sigma = no parametric loss."""
+        if self.margin is None:
+            return [(math.inf, 0.0)]
+        return list(zip(self.margin.sigma, self.margin.area_overhead, strict=True))
 
 
 class Packaging(_Section):
@@ -237,6 +346,36 @@ class Link(_Section):
     bandwidth_gbps: BandwidthGBps = Field(alias="bandwidth")
 
 
+class CriticalAreaReduction(_Section):
+    """Design-side yield options: lower defect sensitivity bought with die area."""
+
+    sensitivity_factor: list[Annotated[float, Field(gt=0, le=1)]] = Field(min_length=1)
+    area_overhead: list[Annotated[float, Field(ge=0)]] = Field(min_length=1)
+
+    @model_validator(mode="after")
+    def _same_length(self) -> CriticalAreaReduction:
+        if len(self.sensitivity_factor) != len(self.area_overhead):
+            raise ValueError("sensitivity_factor and area_overhead need the same length")
+        return self
+
+    def options(self) -> list[tuple[float, float]]:
+        pairs = list(zip(self.sensitivity_factor, self.area_overhead, strict=True))
+        return pairs if (1.0, 0.0) in pairs else [(1.0, 0.0), *pairs]
+
+
+class Requirements(_Section):
+    """Mandated targets, to price them (solve under them and report the profit lost)."""
+
+    min_die_yield: Annotated[float, Field(gt=0, le=1)] | None = None
+    min_sigma_margin: Annotated[float, Field(gt=0)] | None = None
+    max_defect_level: Annotated[float, Field(ge=0, lt=1)] | None = None
+
+    def any(self) -> bool:
+        return any(
+            v is not None for v in (self.min_die_yield, self.min_sigma_margin, self.max_defect_level)
+        )
+
+
 class DesignCost(_Section):
     """One-time design cost of each distinct die design."""
 
@@ -253,6 +392,8 @@ class DieChoice(_Section):
     blocks: dict[str, Annotated[int, Field(ge=1)]] = Field(min_length=1)
     spares: dict[str, Annotated[int, Field(ge=0)]] = Field(default_factory=dict)
     repair: dict[str, Annotated[int, Field(ge=0)]] = Field(default_factory=dict)
+    sigma_margin: Annotated[float, Field(gt=0)] | None = None
+    critical_area_option: Annotated[int, Field(ge=0)] = 0
 
 
 class Design(_Section):
@@ -261,6 +402,7 @@ class Design(_Section):
     name: str
     packaging: str
     die: list[DieChoice] = Field(min_length=1)
+    defect_targets: dict[str, DefectDensityPerCm2] = Field(default_factory=dict)
 
 
 class Problem(_Section):
@@ -273,6 +415,8 @@ class Problem(_Section):
     process: list[Process] = Field(min_length=1)
     packaging: list[Packaging] = Field(min_length=1)
     design_cost: DesignCost = Field(default_factory=DesignCost)
+    critical_area_reduction: CriticalAreaReduction | None = None
+    requirements: Requirements = Field(default_factory=Requirements)
     block: list[Block] = Field(min_length=1)
     link: list[Link] = Field(default_factory=list)
     design: list[Design] = Field(default_factory=list)

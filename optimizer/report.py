@@ -30,6 +30,7 @@ COMPONENT_LABELS = {
     "final_test": "final test",
     "package_scrap": "yield loss: failed packages (all their dies scrapped)",
     "nre_per_unit": "one-time costs (NRE) per unit",
+    "improvement_per_unit": "yield-improvement spend per unit",
 }
 
 
@@ -91,7 +92,13 @@ def design_breakdown(result: DesignResult) -> Group:
     summary.add_row("volume (good units)", f"{result.volume:,.0f}")
     summary.add_row("manufacturing cost / good unit", money(result.manufacturing_cost_per_good_unit, cur))
     summary.add_row("NRE (one-time)", money(result.nre, cur))
+    if result.improvement_spend:
+        summary.add_row("yield-improvement spend (one-time)", money(result.improvement_spend, cur))
     summary.add_row("revenue", money(result.revenue, cur))
+    for name, units in result.salvage_units.items():
+        summary.add_row(f"salvage bin {name} (units)", f"{units:,.0f}")
+    if result.salvage_revenue:
+        summary.add_row("salvage revenue (net)", money(result.salvage_revenue, cur))
     summary.add_row(Text("profit", style="bold"), Text(money(result.profit, cur), style="bold"))
     summary.add_row("margin", percent(result.margin, 1))
     summary.add_row("breakeven volume", f"{result.breakeven_volume:,.0f}")

@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 
 from optimizer.designs import DesignResult, evaluate_specs
 from optimizer.evaluator import COST_COMPONENTS, Evaluator
-from optimizer.problem import Problem, ProblemError
+from optimizer.problem import Problem, ProblemError, Requirements
 from optimizer.solver.exhaustive import exhaustive_search
 from optimizer.solver.infeasibility import explain_infeasible
 from optimizer.solver.search import SearchOutcome, milp_search, profit_bound, relative_gap
@@ -76,6 +76,8 @@ def solve(
     time_limit: float | None = None,
     source: str = "<problem>",
     candidate_cache: dict | None = None,
+    requirements: Requirements | None = None,
+    refine: bool = True,
 ) -> Solution:
     """Find the most profitable design(s) over every admissible choice in the problem.
 
@@ -85,10 +87,14 @@ def solve(
     evaluator = Evaluator(problem)
     if method == "milp":
         outcome: SearchOutcome = milp_search(
-            evaluator, top=top, time_limit=time_limit, candidate_cache=candidate_cache
+            evaluator,
+            top=top,
+            time_limit=time_limit,
+            candidate_cache=candidate_cache,
+            requirements=requirements,
         )
     elif method == "exhaustive":
-        outcome = exhaustive_search(evaluator, top=top)
+        outcome = exhaustive_search(evaluator, top=top, requirements=requirements)
     else:
         raise ValueError(f"unknown method {method!r}; use one of {METHODS}")
     if not outcome.ranked:

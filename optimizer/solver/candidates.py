@@ -16,6 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from optimizer.evaluator import DieBatch, DiePrices, Evaluator
+from optimizer.problem import Requirements
 
 
 @dataclass(frozen=True)
@@ -29,6 +30,8 @@ class CandidateSet:
     repairs: np.ndarray  # (C, B)
     prices: DiePrices
     max_copies: np.ndarray  # (C,) most copies of this die one product can hold
+    level: np.ndarray  # (C,) index into its process's defect_targets()
+    critical_option: np.ndarray  # (C,) index into the critical-area options
 
     def __len__(self) -> int:
         return int(self.process.shape[0])
@@ -72,10 +75,10 @@ def enumerate_contents(evaluator: Evaluator, max_area_mm2: float | None = None) 
     return contents[ok][order]
 
 
-def _variants(evaluator: Evaluator, contents: np.ndarray) -> tuple[np.ndarray, ...]:
-    """Expand contents over processes and the local spare / repair choices."""
+def _variants(evaluator: Evaluator, contents: np.ndarray, packaging) -> tuple[DieBatch, dict]:
+    """Expand contents over processes, defect-density targets, design margins,
+    critical-area options and the local spare / repair choices."""
     problem = evaluator.problem
-    n_proc = len(problem.process)
     b_count = evaluator.blocks.n_blocks
     option_blocks = []  # (block, kind, choices) for blocks with a real choice
     for b, block in enumerate(problem.block):
@@ -85,12 +88,20 @@ def _variants(evaluator: Evaluator, contents: np.ndarray) -> tuple[np.ndarray, .
             option_blocks.append((b, "repair", sorted(set(block.repair.repair_choices) | {0})))
     combos = list(itertools.product(*[choices for _, _, choices in option_blocks])) or [()]
     combo_arr = np.array(combos, dtype=np.int64).reshape(len(combos), len(option_blocks))
+    critical = (
+        problem.critical_area_reduction.options()
+        if problem.critical_area_reduction is not None
+        else [(1.0, 0.0)]
+    )
     c = len(contents)
-    rows_content = []
-    rows_spare = []
-    rows_repair = []
-    rows_proc = []
-    for k, combo in enumerate(combo_arr):
+    parts: dict[str, list[np.ndarray]] = {
+        k: []
+        for k in (
+            "process", "instances", "spares", "repairs", "level", "critical", "density",
+            "adder", "one_time", "sigma", "margin_overhead", "sens", "crit_overhead",
+        )
+    }
+    for combo in combo_arr:
         spare = np.zeros((c, b_count), dtype=np.int64)
         repair = np.zeros((c, b_count), dtype=np.int64)
         valid = np.ones(c, dtype=bool)
@@ -99,17 +110,39 @@ def _variants(evaluator: Evaluator, contents: np.ndarray) -> tuple[np.ndarray, .
             # an option on a block the die does not carry is the same die as option 0
             valid &= present | (value == 0)
             (spare if kind == "spare" else repair)[:, b] = np.where(present, value, 0)
-        for p in range(n_proc):
-            rows_content.append(contents[valid])
-            rows_spare.append(spare[valid])
-            rows_repair.append(repair[valid])
-            rows_proc.append(np.full(int(valid.sum()), p, dtype=np.int64))
-    return (
-        np.concatenate(rows_proc),
-        np.concatenate(rows_content),
-        np.concatenate(rows_spare),
-        np.concatenate(rows_repair),
+        m = int(valid.sum())
+        for p, process in enumerate(problem.process):
+            for level, (density, one_time, adder) in enumerate(process.defect_targets()):
+                for sigma, overhead in process.margin_options():
+                    for k, (sens, crit_overhead) in enumerate(critical):
+                        parts["process"].append(np.full(m, p, dtype=np.int64))
+                        parts["instances"].append(contents[valid])
+                        parts["spares"].append(spare[valid])
+                        parts["repairs"].append(repair[valid])
+                        parts["level"].append(np.full(m, level, dtype=np.int64))
+                        parts["critical"].append(np.full(m, k, dtype=np.int64))
+                        for key, value in (
+                            ("density", density), ("adder", adder), ("one_time", one_time),
+                            ("sigma", sigma), ("margin_overhead", overhead), ("sens", sens),
+                            ("crit_overhead", crit_overhead),
+                        ):
+                            parts[key].append(np.full(m, value, dtype=float))
+    arr = {k: np.concatenate(v) for k, v in parts.items()}
+    batch = DieBatch(
+        process=arr["process"],
+        instances=arr["instances"],
+        spares=arr["spares"],
+        repairs=arr["repairs"],
+        interface_area_mm2=evaluator.interface_area_mm2(arr["instances"], packaging),
+        defect_density_per_cm2=arr["density"],
+        wafer_cost_adder=arr["adder"],
+        improvement_one_time=arr["one_time"],
+        sigma_margin=arr["sigma"],
+        margin_overhead=arr["margin_overhead"],
+        sensitivity_factor=arr["sens"],
+        critical_overhead=arr["crit_overhead"],
     )
+    return batch, {"level": arr["level"], "critical": arr["critical"]}
 
 
 def pareto_keep(group: np.ndarray, metrics: np.ndarray, depth: int = 1) -> np.ndarray:
@@ -146,6 +179,7 @@ def build_candidates(
     contents: np.ndarray | None = None,
     prune: bool = True,
     depth: int = 1,
+    requirements: Requirements | None = None,
 ) -> CandidateSet:
     """Price every admissible candidate die for one packaging option.
 
@@ -160,14 +194,8 @@ def build_candidates(
         contents = enumerate_contents(evaluator)
     if packaging.kind == "single_die":
         contents = contents[np.all(contents == blocks.count[None, :], axis=1)]
-    process, inst, spare, repair = _variants(evaluator, contents)
-    batch = DieBatch(
-        process=process,
-        instances=inst,
-        spares=spare,
-        repairs=repair,
-        interface_area_mm2=evaluator.interface_area_mm2(inst, packaging),
-    )
+    batch, extra = _variants(evaluator, contents, packaging)
+    process, inst, spare, repair = batch.process, batch.instances, batch.spares, batch.repairs
     prices = evaluator.price_dies(batch)
     limits = problem.constraints
     ok = (
@@ -177,9 +205,24 @@ def build_candidates(
         & (prices.area_mm2 >= limits.min_die_area_mm2 - 1e-9)
         & (prices.area_mm2 <= limits.max_die_area_mm2 + 1e-9)
     )
+    need = requirements if requirements is not None else problem.requirements
+    if need.min_die_yield is not None:
+        ok &= prices.die_yield >= need.min_die_yield * (1 - 1e-12)
+    if need.min_sigma_margin is not None:
+        ok &= np.isfinite(prices.sigma_margin) & (
+            prices.sigma_margin >= need.min_sigma_margin * (1 - 1e-12)
+        )
+    if need.max_defect_level is not None:
+        ok &= prices.defect_level <= need.max_defect_level * (1 + 1e-12)
     idx = np.flatnonzero(ok)
-    # group by content; dominance over local options and processes of the same content
-    _, group = np.unique(inst[idx], axis=0, return_inverse=True)
+    # Dominance is checked among variants of one content that share the one-time
+    # yield-improvement situation: processes without a defect-reduction curve together
+    # (no target, nothing shared), each (process, target) of a curve process on its own.
+    curve = np.array([p.defect_reduction is not None for p in problem.process])
+    spend_key = np.where(curve[process[idx]], 1 + process[idx] * 1000 + extra["level"][idx], 0)
+    _, group = np.unique(
+        np.column_stack([inst[idx], spend_key]), axis=0, return_inverse=True
+    )
     metrics = np.column_stack(
         [
             prices.cost_per_passed_die[idx],
@@ -203,4 +246,6 @@ def build_candidates(
         repairs=repair[idx],
         prices=prices.take(idx),
         max_copies=max_copies,
+        level=extra["level"][idx],
+        critical_option=extra["critical"][idx],
     )

@@ -18,6 +18,7 @@ from collections.abc import Iterator
 import numpy as np
 
 from optimizer.evaluator import Evaluator
+from optimizer.problem import Requirements
 from optimizer.solver.candidates import CandidateSet, build_candidates, enumerate_contents
 from optimizer.solver.search import RankedSelection, SearchOutcome
 from optimizer.solver.selection import Selection
@@ -80,7 +81,9 @@ def _slots(assign: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return srt, copies
 
 
-def exhaustive_search(evaluator: Evaluator, top: int = 1) -> SearchOutcome:
+def exhaustive_search(
+    evaluator: Evaluator, top: int = 1, requirements: Requirements | None = None
+) -> SearchOutcome:
     """Price every complete design and return the ``top`` best (exact, no proof needed)."""
     start = time.perf_counter()
     problem = evaluator.problem
@@ -92,7 +95,7 @@ def exhaustive_search(evaluator: Evaluator, top: int = 1) -> SearchOutcome:
     candidates: dict[int, CandidateSet] = {}
     designs = 0
     for g, packaging in enumerate(problem.packaging):
-        cset = build_candidates(evaluator, g, contents, prune=False)
+        cset = build_candidates(evaluator, g, contents, prune=False, requirements=requirements)
         candidates[g] = cset
         if len(cset) == 0:
             continue
@@ -109,8 +112,8 @@ def exhaustive_search(evaluator: Evaluator, top: int = 1) -> SearchOutcome:
             designs += len(rows)
             slot_die, slot_copies = _slots(rows)
             product = evaluator.assemble(g, cset.prices, slot_die, slot_copies)
-            cost = market.volume * product.manufacturing_cost_per_good_unit + product.nre
-            cost = np.where(product.carrier_feasible, cost, np.inf)
+            # total cost = revenue - profit: volume x cost + one-time costs - salvage
+            cost = revenue - product.profit
             take = np.argsort(cost)[:top]
             for i in take:
                 if math.isfinite(cost[i]):

@@ -117,6 +117,17 @@ class Columns:
     carrier_slopes: np.ndarray | None = None
     carrier_intercepts: np.ndarray | None = None
     carrier_factor: float = 0.0
+    # defect-density targets: column -> (process, target) group, or -1 for processes
+    # without a curve; per group its process, target index and one-time cost
+    target_group: np.ndarray | None = None
+    group_process: np.ndarray | None = None
+    group_level: np.ndarray | None = None
+    group_cost: np.ndarray | None = None
+
+    @property
+    def n_targets(self) -> int:
+        """Target binaries y (groups above the base level)."""
+        return 0 if self.group_level is None else int((self.group_level > 0).sum())
 
     @property
     def n_cols(self) -> int:
@@ -188,6 +199,7 @@ def build_columns(evaluator: Evaluator, candidates: CandidateSet, n_dies: int) -
     constant = factor * fixed + packaging.design_cost
     if slopes is None:
         constant += factor * packaging.carrier_cost
+    groups = _target_groups(problem, candidates, col_c)
     rows, cols = np.nonzero(inst.T)
     cover = sp.csr_matrix(
         ((col_k[cols] * inst[cols, rows]).astype(float), (rows, cols)),
@@ -208,7 +220,73 @@ def build_columns(evaluator: Evaluator, candidates: CandidateSet, n_dies: int) -
         carrier_slopes=slopes,
         carrier_intercepts=intercepts,
         carrier_factor=factor,
+        **groups,
     )
+
+
+def _target_groups(problem, candidates: CandidateSet, col_c: np.ndarray) -> dict:
+    """Group columns by (process, defect-density target) for processes with a curve."""
+    curve_processes = [p for p, proc in enumerate(problem.process) if proc.defect_reduction]
+    if not curve_processes:
+        return {}
+    pairs = []
+    for p in curve_processes:
+        for level, (_, one_time, _) in enumerate(problem.process[p].defect_targets()):
+            pairs.append((p, level, one_time))
+    index = {(p, level): g for g, (p, level, _) in enumerate(pairs)}
+    proc = candidates.process[col_c]
+    level = candidates.level[col_c]
+    target_group = np.array(
+        [index.get((int(a), int(b)), -1) for a, b in zip(proc, level, strict=True)],
+        dtype=np.int64,
+    )
+    return {
+        "target_group": target_group,
+        "group_process": np.array([p for p, _, _ in pairs], dtype=np.int64),
+        "group_level": np.array([lv for _, lv, _ in pairs], dtype=np.int64),
+        "group_cost": np.array([c for _, _, c in pairs], dtype=float),
+    }
+
+
+def target_rows(columns: Columns) -> tuple[sp.csr_matrix, np.ndarray, np.ndarray, np.ndarray]:
+    """Rows tying columns to target binaries y (one per (process, target > base)).
+
+    Over variables [w, y]: for a target group, sum k w <= n y; for a process, sum y <= 1;
+    for the base level of a process, sum k w + n sum y <= n (one target per process).
+    Returns the matrix, row lower and upper bounds, and the y objective costs.
+    """
+    n = columns.n_dies
+    n_cols = columns.n_cols
+    y_groups = np.flatnonzero(columns.group_level > 0)
+    y_of = {int(g): j for j, g in enumerate(y_groups)}
+    data, rows, cols, upper = [], [], [], []
+    row = 0
+    for g in y_groups:
+        members = np.flatnonzero(columns.target_group == g)
+        data += columns.col_k[members].astype(float).tolist() + [-float(n)]
+        cols += members.tolist() + [n_cols + y_of[int(g)]]
+        rows += [row] * (members.size + 1)
+        upper.append(0.0)
+        row += 1
+    for p in np.unique(columns.group_process):
+        ys = [y_of[int(g)] for g in y_groups if columns.group_process[g] == p]
+        if not ys:
+            continue
+        data += [1.0] * len(ys)
+        cols += [n_cols + j for j in ys]
+        rows += [row] * len(ys)
+        upper.append(1.0)
+        row += 1
+        base = [g for g in range(len(columns.group_level))
+                if columns.group_process[g] == p and columns.group_level[g] == 0]
+        members = np.flatnonzero(np.isin(columns.target_group, base))
+        data += columns.col_k[members].astype(float).tolist() + [float(n)] * len(ys)
+        cols += members.tolist() + [n_cols + j for j in ys]
+        rows += [row] * (members.size + len(ys))
+        upper.append(float(n))
+        row += 1
+    matrix = sp.csr_matrix((data, (rows, cols)), shape=(row, n_cols + len(y_groups)))
+    return matrix, np.full(row, -np.inf), np.array(upper), columns.group_cost[y_groups]
 
 
 @dataclass(frozen=True)
@@ -225,7 +303,8 @@ def relax(columns: Columns) -> RelaxedBound:
     """Solve the linear relaxation with HiGHS directly on the arrays."""
     n = columns.n_cols
     interposer = columns.carrier_slopes is not None
-    n_var = n + (1 if interposer else 0)
+    n_y = columns.n_targets
+    n_var = n + n_y + (1 if interposer else 0)
     blocks = [columns.cover, sp.csr_matrix(columns.col_k.astype(float)[None, :])]
     lower = [columns.cover_rhs, np.array([columns.n_dies], dtype=float)]
     upper = [columns.cover_rhs, np.array([columns.n_dies], dtype=float)]
@@ -243,12 +322,20 @@ def relax(columns: Columns) -> RelaxedBound:
         lower.append(np.full(len(multi_groups), -np.inf))
         upper.append(np.ones(len(multi_groups)))
     a = sp.vstack(blocks, format="csr")
+    a = sp.hstack([a, sp.csr_matrix((a.shape[0], n_y))], format="csr")
+    y_cost = np.zeros(0)
+    if n_y:
+        t_rows, t_lo, t_hi, y_cost = target_rows(columns)
+        a = sp.vstack([a, t_rows], format="csr")
+        lower.append(t_lo)
+        upper.append(t_hi)
     if interposer:
         a = sp.hstack([a, sp.csr_matrix((a.shape[0], 1))], format="csr")
-        area_row = sp.csr_matrix(np.r_[columns.area, 0.0][None, :])
+        area_row = sp.csr_matrix(np.r_[columns.area, np.zeros(n_y), 0.0][None, :])
         pwl = sp.csr_matrix(
             np.column_stack(
                 [-columns.carrier_slopes[:, None] * columns.area[None, :],
+                 np.zeros((len(columns.carrier_slopes), n_y)),
                  np.ones(len(columns.carrier_slopes))]
             )
         )
@@ -256,7 +343,7 @@ def relax(columns: Columns) -> RelaxedBound:
         lower += [np.array([-np.inf]), columns.carrier_intercepts]
         upper += [np.array([columns.area_cap]), np.full(len(columns.carrier_slopes), np.inf)]
     a = a.tocsc()
-    cost = np.r_[columns.cost, columns.carrier_factor] if interposer else columns.cost
+    cost = np.r_[columns.cost, y_cost, [columns.carrier_factor] if interposer else []]
     h = highspy.Highs()
     h.setOptionValue("output_flag", False)
     lp = highspy.HighsLp()
@@ -264,7 +351,7 @@ def relax(columns: Columns) -> RelaxedBound:
     lp.num_row_ = a.shape[0]
     lp.col_cost_ = cost.astype(float)
     lp.col_lower_ = np.zeros(n_var)
-    lp.col_upper_ = np.r_[np.ones(n), np.inf] if interposer else np.ones(n)
+    lp.col_upper_ = np.r_[np.ones(n + n_y), [np.inf] if interposer else []]
     lp.row_lower_ = np.concatenate(lower).astype(float)
     lp.row_upper_ = np.concatenate(upper).astype(float)
     lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
@@ -345,6 +432,29 @@ def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
     objective = LinearExpression(
         constant=columns.constant, linear_coefs=columns.cost[keep].tolist(), linear_vars=w
     )
+    if columns.n_targets:
+        # the same target rows as the relaxation, restricted to the kept columns
+        t_rows, _, t_hi, y_cost = target_rows(columns)
+        m.y = pyo.Var(range(columns.n_targets), domain=pyo.Binary)
+        position = -np.ones(columns.n_cols + columns.n_targets, dtype=np.int64)
+        position[keep] = np.arange(keep.size)
+        variables = w + [m.y[j] for j in range(columns.n_targets)]
+        position[columns.n_cols :] = keep.size + np.arange(columns.n_targets)
+        m.targets = pyo.ConstraintList()
+        for r in range(t_rows.shape[0]):
+            lo, hi = t_rows.indptr[r], t_rows.indptr[r + 1]
+            idx = t_rows.indices[lo:hi]
+            mask = position[idx] >= 0
+            m.targets.add(
+                LinearExpression(
+                    linear_coefs=t_rows.data[lo:hi][mask].tolist(),
+                    linear_vars=[variables[i] for i in position[idx][mask]],
+                )
+                <= float(t_hi[r])
+            )
+        objective = objective + LinearExpression(
+            linear_coefs=y_cost.tolist(), linear_vars=[m.y[j] for j in range(columns.n_targets)]
+        )
     if columns.carrier_slopes is not None:
         m.carrier = pyo.Var(domain=pyo.NonNegativeReals)
         area = columns.area[keep]

@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from optimizer.evaluator import Evaluator
+from optimizer.problem import Requirements
 from optimizer.solver.candidates import CandidateSet, build_candidates, enumerate_contents
 from optimizer.solver.milp import (
     Columns,
@@ -63,6 +64,7 @@ def milp_search(
     time_limit: float | None = None,
     screen_columns: int = 200,
     candidate_cache: dict | None = None,
+    requirements: Requirements | None = None,
 ) -> SearchOutcome:
     """Proven top-``top`` designs by integer programming with exact verification.
 
@@ -78,17 +80,28 @@ def milp_search(
     log: list[str] = []
     # Candidate dies do not depend on the market section: scenarios that differ only there
     # (price, volume) can share one priced candidate table through ``candidate_cache``.
-    key = (problem.model_dump_json(exclude={"market", "design", "title", "note"}), top)
+    need = requirements if requirements is not None else problem.requirements
+    key = (
+        problem.model_dump_json(exclude={"market", "design", "title", "note", "requirements"}),
+        top,
+        need.model_dump_json(),
+    )
     cached = candidate_cache.get(key) if candidate_cache is not None else None
     contents = enumerate_contents(evaluator) if cached is None else None
     candidates: dict[int, CandidateSet] = {}
     programs: list[tuple[float, Columns]] = []
     for g, packaging in enumerate(problem.packaging):
-        cset = cached[g] if cached is not None else build_candidates(evaluator, g, contents, depth=top)
+        cset = (
+            cached[g]
+            if cached is not None
+            else build_candidates(evaluator, g, contents, depth=top, requirements=need)
+        )
         candidates[g] = cset
         log.append(f"packaging {packaging.name}: {len(cset)} candidate dies after pruning")
         n_max = min(packaging.max_dies, problem.constraints.max_dies)
-        for n in range(1, n_max + 1):
+        # one-die products are all priced exactly below (salvage revenue included), so
+        # the programs start at two dies
+        for n in range(2, n_max + 1):
             columns = build_columns(evaluator, cset, n)
             if columns is not None:
                 programs.append((columns.quick_bound(), columns))
@@ -104,10 +117,9 @@ def milp_search(
         if sel is None or sel in exact:
             return
         prices = price_selections(evaluator, candidates[sel.packaging_index], [sel])
-        total = market.volume * float(prices.manufacturing_cost_per_good_unit[0]) + float(
-            prices.nre[0]
-        )
-        exact[sel] = total if bool(prices.carrier_feasible[0]) else math.inf
+        # total cost = revenue - profit: volume x cost + one-time costs - salvage revenue;
+        # infinite for an invalid product (carrier too large, clashing targets)
+        exact[sel] = float(revenue - prices.profit[0])
 
     def remaining() -> float | None:
         return None if time_limit is None else time_limit - (time.perf_counter() - start)
@@ -128,9 +140,8 @@ def milp_search(
         if whole.size:
             sels = [Selection.of(g, [(int(c), 1)]) for c in whole]
             prices = price_selections(evaluator, cset, sels)
-            totals = market.volume * prices.manufacturing_cost_per_good_unit + prices.nre
-            for sel, total, ok in zip(sels, totals, prices.carrier_feasible, strict=True):
-                exact[sel] = float(total) if ok else math.inf
+            for sel, profit in zip(sels, prices.profit, strict=True):
+                exact[sel] = float(revenue - profit)
 
     timed_out = False
     relaxed: list[tuple[float, Columns, RelaxedBound]] = []

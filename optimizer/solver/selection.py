@@ -68,6 +68,13 @@ def selection_specs(
                 repair=repair,
                 copies=int(k),
                 name=f"die{j + 1}",
+                defect_density_per_cm2=float(candidates.prices.defect_density_per_cm2[c]),
+                sigma_margin=(
+                    float(candidates.prices.sigma_margin[c])
+                    if np.isfinite(candidates.prices.sigma_margin[c])
+                    else None
+                ),
+                critical_area_option=int(candidates.critical_option[c]),
             )
         )
     return specs
