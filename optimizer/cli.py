@@ -135,20 +135,46 @@ def solve(
         Path, typer.Option("--results", help="Folder for the run folder.")
     ] = Path("results"),
     write: Annotated[bool, typer.Option("--write/--no-write", help="Write a run folder.")] = True,
+    require_die_yield: Annotated[
+        float | None, typer.Option("--require-die-yield", help="Mandate a minimum die yield (0-1).")
+    ] = None,
+    require_sigma: Annotated[
+        float | None, typer.Option("--require-sigma", help="Mandate a minimum design margin [sigma].")
+    ] = None,
+    require_defect_level: Annotated[
+        float | None,
+        typer.Option("--require-defect-level", help="Mandate a maximum defect level (e.g. 1e-4)."),
+    ] = None,
 ) -> None:
-    """Find the most profitable design: partition, process per die, packaging, redundancy."""
+    """Find the most profitable design: partition, process per die, packaging, redundancy.
+
+    With mandated targets (--require-... or [requirements] in the file) it solves with and
+    without them and reports the profit the mandate costs.
+    """
     from optimizer.solver import METHODS
     from optimizer.solver import solve as run_solver
+    from optimizer.targets import price_requirements
 
     if method not in METHODS:
         fail(ProblemError(str(problem_path), "--method", f"unknown method '{method}'; use one of {list(METHODS)}"))
+    mandate = None
     try:
         problem = load_problem(problem_path)
-        solution = run_solver(problem, top=top, method=method, time_limit=time_limit,
-                              source=str(problem_path))
+        mandate = _requirements(problem, require_die_yield, require_sigma, require_defect_level)
+        if mandate is not None and mandate.any():
+            priced = price_requirements(problem, mandate, top=top, source=str(problem_path),
+                                        time_limit=time_limit)
+            solution, free = priced.mandated, priced.free
+        else:
+            solution = run_solver(problem, top=top, method=method, time_limit=time_limit,
+                                  source=str(problem_path))
+            priced = free = None
     except ProblemError as error:
         fail(error)
     payload = solution.to_dict()
+    if priced is not None:
+        payload["mandate"] = priced.to_dict()
+        payload["unconstrained_best"] = free.best.to_dict()
     folder = None
     if write:
         folder = write_run_folder(
@@ -169,9 +195,27 @@ def solve(
         return
     console = _console()
     console.print(report.solution_view(solution))
+    if priced is not None:
+        console.print(report.mandate_view(priced))
     if folder is not None:
         console.print(f"wrote {folder}")
     console.print(report.CAUTION, style="dim")
+
+
+def _requirements(problem, die_yield, sigma, defect_level):
+    """The file's [requirements] with any --require-... options on top (None if none)."""
+    from optimizer.problem import Requirements
+
+    base = problem.requirements.model_dump()
+    for key, value in (("min_die_yield", die_yield), ("min_sigma_margin", sigma),
+                       ("max_defect_level", defect_level)):
+        if value is not None:
+            base[key] = value
+    try:
+        merged = Requirements(**base)
+    except Exception as exc:  # pydantic names the bad value
+        raise ProblemError("--require", "", f"invalid requirement ({exc.errors()[0]['msg']})") from None
+    return merged if merged.any() else None
 
 
 def _ranked_csv(solution) -> str:
@@ -193,3 +237,54 @@ def _ranked_csv(solution) -> str:
             **{f"cost_{k}": v for k, v in d.breakdown.items()},
         })
     return pd.DataFrame(rows).to_csv(index=False)
+
+
+@app.command("profit-curve")
+def profit_curve_command(
+    problem_path: ProblemPath,
+    points: Annotated[int, typer.Option("--points", min=3, help="Targets on the curve.")] = 61,
+    require_die_yield: Annotated[
+        float | None, typer.Option("--require-die-yield", help="Mark a mandated die yield.")
+    ] = None,
+    results_dir: Annotated[Path, typer.Option("--results", help="Folder for the run folder.")] = Path("results"),
+) -> None:
+    """Profit and cost per good unit of the winning design against its yield target."""
+    from optimizer.solver import solve as run_solver
+    from optimizer.targets import cost_rises_without_bound, profit_curve, profit_curve_figure
+
+    try:
+        problem = load_problem(problem_path)
+        solution = run_solver(problem, top=1, source=str(problem_path))
+        frame = profit_curve(problem, solution.best, points=points)
+    except ProblemError as error:
+        fail(error)
+    mandated = require_die_yield if require_die_yield is not None else problem.requirements.min_die_yield
+    figure = profit_curve_figure(frame, problem.market.currency, mandated)
+    folder = write_run_folder(
+        results_dir,
+        "profit-curve",
+        problem_path.stem,
+        {
+            "profit_curve.csv": text_writer(frame.to_csv(index=False)),
+            "profit_curve.png": lambda path: figure.savefig(path, dpi=130),
+            "profit_curve.svg": lambda path: figure.savefig(path),
+            "problem.toml": copy_writer(problem_path),
+        },
+    )
+    inside = frame[~frame["extrapolated"]]
+    best = inside.loc[inside["profit"].idxmax()]
+    console = _console()
+    console.print(
+        f"winner: {report.short_design(solution.best)}; yield target varied on process "
+        f"'{frame.attrs['process']}'"
+    )
+    console.print(
+        f"profit peaks at {100 * best['hard_yield']:.2f}% defect-limited yield "
+        f"(D = {best['defect_density_per_cm2']:.4g} /cm^2): profit "
+        f"{report.money(best['profit'], problem.market.currency)}, cost per good unit "
+        f"{report.money(best['cost_per_good_unit'])}"
+    )
+    shape = "yes" if cost_rises_without_bound(frame) else "no"
+    console.print(f"cost per good unit rises without bound as the target approaches 100%: {shape}")
+    console.print(f"wrote {folder}")
+    console.print(report.CAUTION, style="dim")

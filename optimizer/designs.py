@@ -311,3 +311,21 @@ def evaluate_design(evaluator: Evaluator, design: Design, source: str = "<proble
     return evaluate_specs(
         evaluator, specs_from_design(design), design.packaging, design.name, source
     )
+
+
+def specs_from_result(result: DesignResult) -> list[DieSpec]:
+    """Die specs that reproduce a priced design (to re-price it under other inputs)."""
+    return [
+        DieSpec(
+            process=die.process,
+            blocks=dict(die.blocks),
+            spares=dict(die.spares),
+            repair=dict(die.repair),
+            copies=die.copies,
+            name=die.name,
+            defect_density_per_cm2=die.defect_density_per_cm2,
+            sigma_margin=die.sigma_margin if math.isfinite(die.sigma_margin) else None,
+            critical_area_option=die.critical_area_option,
+        )
+        for die in result.dies
+    ]

@@ -156,10 +156,8 @@ class Evaluator:
             density = np.where(
                 np.isnan(density_all[rows]), process.defect_density_per_cm2, density_all[rows]
             )
-            unit_area = blocks.area_mm2 * blocks.scale[p_index]  # (B,)
-            block_area = (q + s) * unit_area + q * r * blocks.area_per_repair_mm2
             interface = batch.interface_area_mm2[rows]
-            area = block_area.sum(axis=1) * growth + interface
+            area = self._die_area(p_index, q, s, r, growth, interface)
             width, height = die_shape_mm(area, process)
             gross = gross_dies(process, width, height)
             fits = _fits_field(width, height, process)
@@ -206,6 +204,28 @@ class Evaluator:
             out["improvement_one_time"][rows] = one_time_all[rows]
             out["salvage_per_good"][rows] = salvage
         return DiePrices(**out)
+
+    def _die_area(self, p_index, q, s, r, growth, interface) -> np.ndarray:
+        """Die area [mm^2]: blocks with spares and repair, grown by the margin and
+        critical-area options, plus the die-to-die interface."""
+        blocks = self.blocks
+        unit_area = blocks.area_mm2 * blocks.scale[p_index]  # (B,)
+        block_area = (q + s) * unit_area + q * r * blocks.area_per_repair_mm2
+        return block_area.sum(axis=1) * growth + interface
+
+    def die_area_mm2(self, batch: DieBatch) -> np.ndarray:
+        """Areas of a batch without pricing it (cheap pre-screening)."""
+        growth = (1 + batch.column("margin_overhead", 0.0)) * (
+            1 + batch.column("critical_overhead", 0.0)
+        )
+        area = np.empty(len(batch))
+        for p_index in range(len(self.problem.process)):
+            rows = np.flatnonzero(batch.process == p_index)
+            area[rows] = self._die_area(
+                p_index, batch.instances[rows], batch.spares[rows], batch.repairs[rows],
+                growth[rows], batch.interface_area_mm2[rows],
+            )
+        return area
 
     def _log_hard_yield(
         self,

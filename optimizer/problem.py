@@ -420,6 +420,7 @@ class Problem(_Section):
     block: list[Block] = Field(min_length=1)
     link: list[Link] = Field(default_factory=list)
     design: list[Design] = Field(default_factory=list)
+    uncertain: list[UncertainInput] = Field(default_factory=list)
 
     # Lookups used by later layers; names are unique (checked in validate_references).
     def process_index(self, name: str) -> int:
@@ -620,3 +621,111 @@ def load_problem(path: str | Path) -> Problem:
     except tomllib.TOMLDecodeError as exc:
         raise ProblemError(source, "", f"not valid TOML ({exc}); fix the syntax there") from None
     return parse_problem(data, source)
+
+
+# ---------------------------------------------------------------- uncertain inputs
+# Exploration addition ([[uncertain]] entries). Paths follow the grammar of
+# optimizer/explore/paths.py, which is derived from the classes above; it is imported
+# when a path is checked, after this module has loaded. Item names in paths are checked
+# against the problem by optimizer.explore.paths.check_uncertain.
+
+DISTRIBUTIONS: dict[str, tuple[str, ...]] = {
+    "normal": ("mean", "std"),
+    "lognormal": ("median", "sigma_log"),
+    "uniform": ("low", "high"),
+    "triangular": ("low", "mode", "high"),
+}
+_DISTRIBUTION_PARAMETERS = ("mean", "std", "median", "sigma_log", "mode", "low", "high")
+
+
+class UncertainInput(_Section):
+    """An input known only as a distribution, for Monte Carlo and sensitivity ranges.
+
+    Parameters are numbers in the field's base unit, or quantities with their unit for
+    unit fields (``median = "0.2 /cm^2"``). ``low`` and ``high`` give the sensitivity
+    range: the distribution's own bounds for uniform and triangular; by default
+    mean -/+ 2 std for normal and median x exp(-/+ 2 sigma_log) for lognormal.
+    """
+
+    path: str
+    distribution: Literal["normal", "lognormal", "uniform", "triangular"]
+    mean: float | None = None
+    std: Annotated[float, Field(gt=0)] | None = None
+    median: Annotated[float, Field(gt=0)] | None = None
+    sigma_log: Annotated[float, Field(gt=0)] | None = None
+    mode: float | None = None
+    low: float | None = None
+    high: float | None = None
+
+    @model_validator(mode="before")
+    @classmethod
+    def _quantities(cls, data: object) -> object:
+        from optimizer.explore.paths import PathError, parse_path
+
+        if not isinstance(data, dict):
+            return data
+        try:
+            path = parse_path(data.get("path"))
+        except PathError:
+            return data  # reported against the path by _known_path
+        if path.unit is None:
+            return data
+        out = dict(data)
+        for key in _DISTRIBUTION_PARAMETERS:
+            if key != "sigma_log" and isinstance(out.get(key), str):
+                try:
+                    out[key] = to_base(out[key], path.unit)
+                except UnitError as exc:
+                    raise ValueError(f"{key}: {exc}") from None
+        return out
+
+    @field_validator("path")
+    @classmethod
+    def _known_path(cls, value: str) -> str:
+        from optimizer.explore.paths import PathError, parse_path
+
+        try:
+            return parse_path(value).text
+        except PathError as exc:
+            raise ValueError(f"path '{value}': {exc}") from None
+
+    @model_validator(mode="after")
+    def _parameters(self) -> UncertainInput:
+        needed = DISTRIBUTIONS[self.distribution]
+        missing = [key for key in needed if getattr(self, key) is None]
+        if missing:
+            raise ValueError(f"a {self.distribution} distribution needs {missing}; add them")
+        allowed = set(needed) | {"low", "high"}
+        extra = [
+            key
+            for key in _DISTRIBUTION_PARAMETERS
+            if key not in allowed and getattr(self, key) is not None
+        ]
+        if extra:
+            raise ValueError(
+                f"{extra} do not belong to a {self.distribution} distribution (it takes "
+                f"{list(needed)}, and low/high for its range); remove them"
+            )
+        low, high = self.range()
+        if not (math.isfinite(low) and math.isfinite(high) and low < high):
+            raise ValueError(f"low ({low:g}) must be below high ({high:g}); fix the range")
+        if self.distribution == "triangular" and not low <= self.mode <= high:
+            raise ValueError(f"mode ({self.mode:g}) must lie within [low, high]; move it")
+        return self
+
+    def range(self) -> tuple[float, float]:
+        """Sensitivity range (low, high) in the field's base unit."""
+        if self.distribution == "normal":
+            default = (self.mean - 2 * self.std, self.mean + 2 * self.std)
+        elif self.distribution == "lognormal":
+            spread = math.exp(2 * self.sigma_log)
+            default = (self.median / spread, self.median * spread)
+        else:
+            default = (self.low, self.high)
+        return (
+            default[0] if self.low is None else self.low,
+            default[1] if self.high is None else self.high,
+        )
+
+
+Problem.model_rebuild()

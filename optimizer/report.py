@@ -270,19 +270,47 @@ def short_design(result: DesignResult) -> str:
             extra += " spares " + ",".join(f"{k}:{v}" for k, v in die.spares.items())
         if die.repair:
             extra += " repair " + ",".join(f"{k}:{v}" for k, v in die.repair.items())
+        extra += f" D={die.defect_density_per_cm2:.3g}"
+        if math.isfinite(die.sigma_margin):
+            extra += f" margin={die.sigma_margin:g}sigma"
+        if die.critical_area_option:
+            extra += f" critical-area option {die.critical_area_option}"
         items.append(f"{die.copies}x[{blocks}]@{die.process}{extra}")
     return "; ".join(items)
 
 
 def die_contents(result: DesignResult) -> Table:
     table = Table(title="Die designs", title_justify="left")
-    for col in ("die", "copies", "process", "blocks", "spares / repair"):
+    for col in ("die", "copies", "process", "D target /cm^2", "margin", "blocks",
+                "spares / repair / options"):
         table.add_column(col)
     for die in result.dies:
         options = ", ".join(
             [f"{k} +{v} spare" for k, v in die.spares.items()]
             + [f"{k} {v} repairs" for k, v in die.repair.items()]
+            + ([f"critical-area option {die.critical_area_option}"]
+               if die.critical_area_option else [])
         ) or "-"
-        table.add_row(die.name, str(die.copies), die.process,
-                      ", ".join(f"{n} x{c}" for n, c in die.blocks.items()), options)
+        margin = f"{die.sigma_margin:g} sigma" if math.isfinite(die.sigma_margin) else "-"
+        table.add_row(die.name, str(die.copies), die.process, f"{die.defect_density_per_cm2:.4g}",
+                      margin, ", ".join(f"{n} x{c}" for n, c in die.blocks.items()), options)
     return table
+
+
+def mandate_view(priced) -> Group:
+    """What a mandated target costs: the optimum with and without it."""
+    cur = priced.free.best.currency
+    table = Table(title="Mandated targets priced", title_justify="left")
+    table.add_column("")
+    table.add_column("design")
+    table.add_column("profit", justify="right")
+    table.add_row("without the mandate", Text(short_design(priced.free.best)),
+                  money(priced.free.best.profit, cur))
+    table.add_row("under the mandate", Text(short_design(priced.mandated.best)),
+                  money(priced.mandated.best.profit, cur))
+    need = {k: v for k, v in priced.requirements.model_dump().items() if v is not None}
+    text = Text(
+        f"The mandate {need} costs {money(priced.profit_lost, cur)} of profit "
+        f"({percent(priced.profit_lost / abs(priced.free.best.profit))} of the optimum)."
+    )
+    return Group(table, text)

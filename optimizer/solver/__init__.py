@@ -12,7 +12,8 @@ from optimizer.designs import DesignResult, evaluate_specs
 from optimizer.evaluator import COST_COMPONENTS, Evaluator
 from optimizer.problem import Problem, ProblemError, Requirements
 from optimizer.solver.exhaustive import exhaustive_search
-from optimizer.solver.infeasibility import explain_infeasible
+from optimizer.solver.infeasibility import explain_infeasible, explain_requirements
+from optimizer.solver.refine import refine_targets
 from optimizer.solver.search import SearchOutcome, milp_search, profit_bound, relative_gap
 from optimizer.solver.selection import selection_specs
 
@@ -32,6 +33,7 @@ class Solution:
     stats: dict
     log: list[str]
     difference: list[dict] = field(default_factory=list)
+    targets_refined: bool = False  # winner's defect targets refined beyond the levels
 
     @property
     def best(self) -> DesignResult:
@@ -45,10 +47,19 @@ class Solution:
             "gap": self.gap,
             "seconds": self.seconds,
             "stats": self.stats,
+            "targets_refined": self.targets_refined,
             "best": self.designs[0].to_dict(),
             "ranked": [d.to_dict() for d in self.designs],
             "difference_to_runner_up": self.difference,
         }
+
+
+def _has_continuous_targets(problem: Problem, specs) -> bool:
+    for spec in specs:
+        curve = problem.process[problem.process_index(spec.process)].defect_reduction
+        if curve is not None and curve.form == "log_ratio":
+            return True
+    return False
 
 
 def explain_difference(winner: DesignResult, runner_up: DesignResult) -> list[dict]:
@@ -98,18 +109,34 @@ def solve(
     else:
         raise ValueError(f"unknown method {method!r}; use one of {METHODS}")
     if not outcome.ranked:
+        need = requirements if requirements is not None else problem.requirements
+        if outcome.proven and need.any():
+            reason = explain_requirements(evaluator, need)
+            if reason is not None:
+                raise ProblemError(source, "requirements", reason)
         if outcome.proven:
             raise ProblemError(source, "constraints", explain_infeasible(evaluator))
         raise ProblemError(
             source, "", "no design found within the time limit; raise --time-limit"
         )
     designs = []
+    refined = False
     for rank, item in enumerate(outcome.ranked, start=1):
         cset = outcome.candidates[item.selection.packaging_index]
         specs = selection_specs(evaluator, cset, item.selection)
         packaging = problem.packaging[item.selection.packaging_index].name
-        designs.append(evaluate_specs(evaluator, specs, packaging, f"rank{rank}", source))
+        result = evaluate_specs(evaluator, specs, packaging, f"rank{rank}", source)
+        if refine and rank == 1 and _has_continuous_targets(problem, specs):
+            _, better = refine_targets(evaluator, specs, packaging, "rank1")
+            if better.profit > result.profit:
+                result, refined = better, True
+        designs.append(result)
     difference = explain_difference(designs[0], designs[1]) if len(designs) > 1 else []
+    if refined:
+        outcome.log.append(
+            "winner's defect-density targets refined continuously: "
+            f"profit {designs[0].profit:.10g}"
+        )
     gap = relative_gap(outcome, evaluator)
     return Solution(
         designs=designs,
@@ -121,6 +148,7 @@ def solve(
         stats=outcome.stats,
         log=outcome.log,
         difference=difference,
+        targets_refined=refined,
     )
 
 

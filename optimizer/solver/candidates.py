@@ -195,9 +195,24 @@ def build_candidates(
     if packaging.kind == "single_die":
         contents = contents[np.all(contents == blocks.count[None, :], axis=1)]
     batch, extra = _variants(evaluator, contents, packaging)
+    # drop dies over the area limits before pricing them (pricing is the costly part)
+    limits = problem.constraints
+    field = np.array([p.reticle_width_mm * p.reticle_height_mm for p in problem.process])
+    area = evaluator.die_area_mm2(batch)
+    fits = (area <= np.minimum(limits.max_die_area_mm2, field[batch.process]) + 1e-9) & (
+        area >= limits.min_die_area_mm2 - 1e-9
+    )
+    if not fits.all():
+        keep = np.flatnonzero(fits)
+        batch = DieBatch(
+            **{
+                name: (value[keep] if isinstance(value, np.ndarray) else value)
+                for name, value in vars(batch).items()
+            }
+        )
+        extra = {name: value[keep] for name, value in extra.items()}
     process, inst, spare, repair = batch.process, batch.instances, batch.spares, batch.repairs
     prices = evaluator.price_dies(batch)
-    limits = problem.constraints
     ok = (
         prices.fits_reticle
         & (prices.gross_dies_per_wafer > 0)

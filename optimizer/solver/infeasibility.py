@@ -70,3 +70,48 @@ def explain_infeasible(evaluator: Evaluator) -> str:
         "keep_together / keep_apart rule; widen min_die_area / max_die_area or max_dies "
         f"(smallest possible silicon {np.round(total_min, 1)} mm^2)"
     )
+
+
+def explain_requirements(evaluator: Evaluator, requirements) -> str | None:
+    """Why a mandated target cannot be met, or None if every block can meet it alone.
+
+    The die most likely to meet a die-level target for a block is one instance of that
+    block alone; if even the best such die (any process, target, margin or option) misses
+    the requirement, no design can meet it.
+    """
+    from optimizer.solver.candidates import _variants
+
+    problem = evaluator.problem
+    blocks = evaluator.blocks
+    contents = np.eye(blocks.n_blocks, dtype=np.int64)
+    packaging = problem.packaging[0]
+    batch, _ = _variants(evaluator, contents, packaging)
+    prices = evaluator.price_dies(batch)
+    content_of = batch.instances.argmax(axis=1)
+    checks = []
+    if requirements.min_die_yield is not None:
+        checks.append(("die yield", prices.die_yield, requirements.min_die_yield, max, "at least"))
+    if requirements.min_sigma_margin is not None:
+        sigma = np.where(np.isfinite(prices.sigma_margin), prices.sigma_margin, -np.inf)
+        checks.append(("design margin (sigma)", sigma, requirements.min_sigma_margin, max,
+                       "at least"))
+    if requirements.max_defect_level is not None:
+        checks.append(("defect level", prices.defect_level, requirements.max_defect_level, min,
+                       "at most"))
+    for label, values, limit, best_of, word in checks:
+        for b, name in enumerate(blocks.names):
+            mine = values[content_of == b]
+            best = best_of(mine) if mine.size else np.nan
+            ok = best >= limit * (1 - 1e-12) if best_of is max else best <= limit * (1 + 1e-12)
+            if not ok:
+                if label.startswith("design margin") and not np.isfinite(best):
+                    return (
+                        f"required sigma margin {limit:g} cannot be met: no process has a "
+                        "[process.margin] curve, so margins are not modelled; add one"
+                    )
+                return (
+                    f"required {label} {word} {limit:g} cannot be met: block '{name}' alone on "
+                    f"its best die reaches only {best:.6g}; relax the requirement or add a "
+                    "cleaner process, defect-reduction levels or larger margins"
+                )
+    return None
