@@ -257,9 +257,13 @@ class Evaluator:
         fraction = blocks.repairable_fraction
 
         def mixed(rows: np.ndarray, needed_override: dict[int, np.ndarray]) -> np.ndarray:
+            # blocks with an override (salvage bands) are counted unit by unit too
             qc, sc, rc = q[rows], s[rows], r[rows]
-            red_rows = redundant[rows]
+            red_rows = redundant[rows].copy()
+            for b in needed_override:
+                red_rows[:, b] = True
             crit = unit_crit[rows]
+            plain = (qc * ~red_rows * crit).sum(axis=1) + interface_mm2[rows] / MM2_PER_CM2
             red_blocks = np.flatnonzero(red_rows.any(axis=0))
 
             def log_factor(d: np.ndarray) -> np.ndarray:
@@ -285,24 +289,23 @@ class Evaluator:
                 return total
 
             return defect_mixture.log_mixed_yield(
-                process.yield_model, density[rows], plain_cm2[rows], log_factor, **params
+                process.yield_model, density[rows], plain, log_factor, **params
             )
 
         if complex_rows.size:
             log_y[complex_rows] = mixed(complex_rows, {})
         salvage = np.zeros((q.shape[0], len(self.problem.market.salvage_bin)))
         for j, b_lo, m_lo, m_hi in self._salvage_bands():
-            # dies with every instance of the bin's block, whose spares make a band possible
-            rows = np.flatnonzero(
-                (q[:, b_lo] == blocks.count[b_lo]) & redundant[:, b_lo] & (q[:, b_lo] > m_lo)
-            )
+            # dies with every instance of the bin's block (one-die products)
+            rows = np.flatnonzero((q[:, b_lo] == blocks.count[b_lo]) & (q[:, b_lo] > m_lo))
             if rows.size == 0:
                 continue
             upper = q[rows, b_lo] if m_hi is None else np.minimum(m_hi, q[rows, b_lo])
             at_least_lo = mixed(rows, {b_lo: np.full(rows.size, m_lo)})
             at_least_hi = mixed(rows, {b_lo: upper})
             band = np.exp(at_least_lo) - np.exp(at_least_hi)
-            salvage[rows, j] = np.maximum(band, 0.0) / np.exp(log_y[rows])
+            with np.errstate(divide="ignore", invalid="ignore"):
+                salvage[rows, j] = np.maximum(band, 0.0) / np.exp(log_y[rows])
         return log_y + np.log(process.systematic_yield), salvage
 
     def _salvage_bands(self) -> list[tuple[int, int, int, int | None]]:
