@@ -331,3 +331,22 @@ def test_demo_optimum_beats_every_explicit_design(name):
         if not result.violations:
             assert solution.best.profit >= result.profit * (1 - 1e-12)
     assert solution.designs[0].profit >= solution.designs[1].profit
+
+
+def test_time_limit_returns_best_found_with_its_gap():
+    # A tiny time limit: a design is still returned, not claimed optimal, and the proven
+    # bound is no lower than its profit; the full solve lies within that bound.
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "benchmarks"))
+    from synthetic import synthetic_problem
+
+    problem = synthetic_problem(10)
+    quick = solve(problem, top=1, time_limit=0.05)
+    full = solve(problem, top=1)
+    assert full.proven_optimal
+    assert quick.best.profit <= full.best.profit * (1 + 1e-12)
+    assert quick.profit_bound >= full.best.profit * (1 - 1e-9)
+    if not quick.proven_optimal:
+        assert quick.gap >= 0

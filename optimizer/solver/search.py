@@ -200,6 +200,24 @@ def milp_search(
             break
         solve_round(sub, remaining())
         price(sub)
+    if timed_out and not any(math.isfinite(v) for v in exact.values()):
+        # out of time before any design: a short look at the most promising program so
+        # that the user gets the best design found with its gap rather than nothing
+        pending = sorted(relaxed, key=lambda item: item[0]) or [
+            (quick, columns, None) for quick, columns in programs
+        ]
+        for _, columns, bound in pending[:3]:
+            if bound is None:
+                bound = relax(columns)
+                if not bound.feasible:
+                    continue
+            order = np.argsort(bound.reduced_cost, kind="stable")
+            few = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
+            scout = build_subproblem(columns, few)
+            solve_round(scout, 10.0)
+            price(scout)
+            if any(math.isfinite(v) for v in exact.values()):
+                break
     ranked_items = sorted(
         ((sel, total) for sel, total in exact.items() if math.isfinite(total)),
         key=lambda item: (item[1], item[0]),
