@@ -32,7 +32,10 @@ def batch(ev: Evaluator, contents: np.ndarray, n: int, redundancy: bool, seed: i
     spares = np.zeros_like(pick)
     repairs = np.zeros_like(pick)
     if redundancy:
-        core, cache = ev.problem.block_index("compute_cluster"), ev.problem.block_index("cache_slice")
+        core, cache = (
+            ev.problem.block_index("compute_cluster"),
+            ev.problem.block_index("cache_slice"),
+        )
         spares[:, core] = np.where(pick[:, core] > 0, rng.integers(1, 3, n), 0)
         repairs[:, cache] = np.where(pick[:, cache] > 0, 8, 0)
     packaging = ev.problem.packaging[1]

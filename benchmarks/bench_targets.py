@@ -29,9 +29,12 @@ def main() -> None:
     solve(parse_problem(tomllib.loads(Path("problems/edge_accelerator.toml").read_text())), top=1)
     for name in ("server_processor", "edge_accelerator"):
         data = tomllib.loads(Path(f"problems/{name}.toml").read_text())
-        plain = {**data, "process": [
-            {k: v for k, v in p.items() if k != "defect_reduction"} for p in data["process"]
-        ]}
+        plain = {
+            **data,
+            "process": [
+                {k: v for k, v in p.items() if k != "defect_reduction"} for p in data["process"]
+            ],
+        }
         t_plain, p_plain = timed(plain)
         t_targets, p_targets = timed(data)
         print(

@@ -131,7 +131,11 @@ def die_batch(evaluator: Evaluator, specs: list[DieSpec], packaging_index: int) 
     spares = np.zeros((n, b), dtype=np.int64)
     repairs = np.zeros((n, b), dtype=np.int64)
     for i, spec in enumerate(specs):
-        for table, target in ((spec.blocks, instances), (spec.spares, spares), (spec.repair, repairs)):
+        for table, target in (
+            (spec.blocks, instances),
+            (spec.spares, spares),
+            (spec.repair, repairs),
+        ):
             for name, value in table.items():
                 target[i, problem.block_index(name)] = value
     packaging = problem.packaging[packaging_index]
@@ -306,7 +310,9 @@ def evaluate_specs(
     )
 
 
-def evaluate_design(evaluator: Evaluator, design: Design, source: str = "<problem>") -> DesignResult:
+def evaluate_design(
+    evaluator: Evaluator, design: Design, source: str = "<problem>"
+) -> DesignResult:
     """Price an explicit design from the problem file."""
     return evaluate_specs(
         evaluator, specs_from_design(design), design.packaging, design.name, source

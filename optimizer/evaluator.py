@@ -222,8 +222,12 @@ class Evaluator:
         for p_index in range(len(self.problem.process)):
             rows = np.flatnonzero(batch.process == p_index)
             area[rows] = self._die_area(
-                p_index, batch.instances[rows], batch.spares[rows], batch.repairs[rows],
-                growth[rows], batch.interface_area_mm2[rows],
+                p_index,
+                batch.instances[rows],
+                batch.spares[rows],
+                batch.repairs[rows],
+                growth[rows],
+                batch.interface_area_mm2[rows],
             )
         return area
 
@@ -317,7 +321,9 @@ class Evaluator:
         bins = self.problem.market.salvage_bin
         for j, sbin in enumerate(bins):
             b = self.problem.block_index(sbin.block)
-            higher = [o.min_good for o in bins if o.block == sbin.block and o.min_good > sbin.min_good]
+            higher = [
+                o.min_good for o in bins if o.block == sbin.block and o.min_good > sbin.min_good
+            ]
             bands.append((j, b, sbin.min_good, min(higher) if higher else None))
         return bands
 
@@ -420,7 +426,9 @@ class Evaluator:
             profit=np.where(feasible, profit, -np.inf),
         )
 
-    def _improvement_spend(self, pick: DiePrices, used: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def _improvement_spend(
+        self, pick: DiePrices, used: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
         """One-time yield-improvement spend per product, and whether targets agree.
 
         A process has one defect-density target per product (one fab line): its one-time

@@ -247,9 +247,7 @@ class Process(_Section):
         if curve is None:
             return targets
         if curve.form == "table":
-            extra = sorted(
-                (p for p in curve.table() if p[0] < base), key=lambda p: -p[0]
-            )
+            extra = sorted((p for p in curve.table() if p[0] < base), key=lambda p: -p[0])
             return targets + extra
         densities = base * (curve.floor_per_cm2 / base) ** (
             np.arange(1, curve.levels) / (curve.levels - 1)
@@ -330,7 +328,7 @@ class Block(_Section):
     @classmethod
     def _positive_area(cls, value: float) -> float:
         if not value > 0:
-            raise ValueError("area must be positive, e.g. \"12 mm^2\"")
+            raise ValueError('area must be positive, e.g. "12 mm^2"')
         return value
 
     @field_validator("spare_choices")
@@ -372,7 +370,8 @@ class Requirements(_Section):
 
     def any(self) -> bool:
         return any(
-            v is not None for v in (self.min_die_yield, self.min_sigma_margin, self.max_defect_level)
+            v is not None
+            for v in (self.min_die_yield, self.min_sigma_margin, self.max_defect_level)
         )
 
 
@@ -560,10 +559,10 @@ def validate_references(problem: Problem, source: str) -> None:
                             f"{die_where}.{table}.{name}",
                             f"unknown block '{name}'; use one of {sorted(blocks)}",
                         )
-            for name, spare in die.spares.items():
+            for name in die.spares:
                 if name not in die.blocks:
                     fail(f"{die_where}.spares.{name}", f"block '{name}' is not on this die")
-            for name, repairs in die.repair.items():
+            for name in die.repair:
                 if blocks[name].repair is None:
                     fail(
                         f"{die_where}.repair.{name}",

@@ -61,8 +61,15 @@ def design_breakdown(result: DesignResult) -> Group:
     )
     dies = Table(title="Dies", title_justify="left", show_lines=False)
     for col in (
-        "die", "process", "copies", "area mm^2", "gross/wafer", "hard yield",
-        "soft yield", "defect level", "cost/passed die",
+        "die",
+        "process",
+        "copies",
+        "area mm^2",
+        "gross/wafer",
+        "hard yield",
+        "soft yield",
+        "defect level",
+        "cost/passed die",
     ):
         dies.add_column(col, justify="left" if col in ("die", "process") else "right")
     for die in result.dies:
@@ -90,7 +97,9 @@ def design_breakdown(result: DesignResult) -> Group:
     summary.add_column(justify="right")
     summary.add_row("unit price", money(result.unit_price, cur))
     summary.add_row("volume (good units)", f"{result.volume:,.0f}")
-    summary.add_row("manufacturing cost / good unit", money(result.manufacturing_cost_per_good_unit, cur))
+    summary.add_row(
+        "manufacturing cost / good unit", money(result.manufacturing_cost_per_good_unit, cur)
+    )
     summary.add_row("NRE (one-time)", money(result.nre, cur))
     if result.improvement_spend:
         summary.add_row("yield-improvement spend (one-time)", money(result.improvement_spend, cur))
@@ -111,12 +120,27 @@ def design_breakdown(result: DesignResult) -> Group:
 def designs_overview(results: list[DesignResult]) -> Table:
     """One line per design, best profit first."""
     table = Table(title="Designs by profit", title_justify="left")
-    for col in ("design", "packaging", "dies", "cost/good unit", "package yield", "NRE", "profit", "margin"):
+    for col in (
+        "design",
+        "packaging",
+        "dies",
+        "cost/good unit",
+        "package yield",
+        "NRE",
+        "profit",
+        "margin",
+    ):
         table.add_column(col, justify="left" if col in ("design", "packaging") else "right")
     for r in sorted(results, key=lambda r: -r.profit):
         table.add_row(
-            r.design, r.packaging, str(r.n_dies), money(r.cost_per_good_unit),
-            percent(r.package_yield), money(r.nre), money(r.profit), percent(r.margin, 1),
+            r.design,
+            r.packaging,
+            str(r.n_dies),
+            money(r.cost_per_good_unit),
+            percent(r.package_yield),
+            money(r.nre),
+            money(r.profit),
+            percent(r.margin, 1),
         )
     return table
 
@@ -183,7 +207,8 @@ def problem_summary(problem: Problem, source: str) -> Group:
         "interposer": [
             f"on {g.interposer_process}, {g.interposer_area_factor:g} x dies + "
             f"{g.interposer_extra_area_mm2:g} mm^2, max {g.interposer_max_area_mm2:g} mm^2"
-            if g.kind == "silicon_interposer" else "-"
+            if g.kind == "silicon_interposer"
+            else "-"
             for g in problem.packaging
         ],
         "package cost / yield": [
@@ -205,21 +230,31 @@ def problem_summary(problem: Problem, source: str) -> Group:
     for b in problem.block:
         repair = (
             f"f={b.repair.repairable_fraction:g}, choices {b.repair.repair_choices}"
-            if b.repair else "-"
+            if b.repair
+            else "-"
         )
-        blocks.add_row(b.name, b.kind, f"{b.area_mm2:g}", str(b.count), f"{b.defect_sensitivity:g}",
-                       str(b.spare_choices), repair)
+        blocks.add_row(
+            b.name,
+            b.kind,
+            f"{b.area_mm2:g}",
+            str(b.count),
+            f"{b.defect_sensitivity:g}",
+            str(b.spare_choices),
+            repair,
+        )
     links = Table(title="Links", title_justify="left")
     links.add_column("blocks")
     links.add_column("GB/s", justify="right")
     for link in problem.link:
         links.add_row(" - ".join(link.blocks), f"{link.bandwidth_gbps:g}")
     parts += [procs, packs, blocks, links]
-    parts.append(Text(
-        f"design cost: {money(problem.design_cost.per_die_design)} per die design + "
-        f"{money(problem.design_cost.per_mm2)} per mm^2; explicit designs: "
-        + (", ".join(d.name for d in problem.design) or "none")
-    ))
+    parts.append(
+        Text(
+            f"design cost: {money(problem.design_cost.per_die_design)} per die design + "
+            f"{money(problem.design_cost.per_mm2)} per mm^2; explicit designs: "
+            + (", ".join(d.name for d in problem.design) or "none")
+        )
+    )
     return Group(*parts)
 
 
@@ -234,8 +269,10 @@ def solution_view(solution) -> Group:
         f"gap {percent(solution.gap, 3)}"
     )
     parts: list = [
-        Text.assemble(("Most profitable design", "bold"), f"  ({solution.method}, {status}, "
-                      f"{solution.seconds:.2f} s)"),
+        Text.assemble(
+            ("Most profitable design", "bold"),
+            f"  ({solution.method}, {status}, {solution.seconds:.2f} s)",
+        ),
         die_contents(best),
         design_breakdown(best),
     ]
@@ -245,17 +282,27 @@ def solution_view(solution) -> Group:
             ranked.add_column(col, justify="right" if col not in ("dies", "packaging") else "left")
         for i, d in enumerate(solution.designs, start=1):
             ranked.add_row(
-                str(i), Text(short_design(d)), d.packaging, money(d.cost_per_good_unit),
-                money(d.profit), money(best.profit - d.profit),
+                str(i),
+                Text(short_design(d)),
+                d.packaging,
+                money(d.cost_per_good_unit),
+                money(d.profit),
+                money(best.profit - d.profit),
             )
         parts.append(ranked)
     if solution.difference:
-        diff = Table(title="Why the winner beats the runner-up (per good unit)", title_justify="left")
+        diff = Table(
+            title="Why the winner beats the runner-up (per good unit)", title_justify="left"
+        )
         for col in ("component", "winner", "runner-up", "winner saves"):
             diff.add_column(col, justify="left" if col == "component" else "right")
         for row in solution.difference:
-            diff.add_row(COMPONENT_LABELS[row["component"]], money(row["winner"]),
-                         money(row["runner_up"]), money(row["advantage"]))
+            diff.add_row(
+                COMPONENT_LABELS[row["component"]],
+                money(row["winner"]),
+                money(row["runner_up"]),
+                money(row["advantage"]),
+            )
         parts.append(diff)
     return Group(*parts)
 
@@ -281,19 +328,39 @@ def short_design(result: DesignResult) -> str:
 
 def die_contents(result: DesignResult) -> Table:
     table = Table(title="Die designs", title_justify="left")
-    for col in ("die", "copies", "process", "D target /cm^2", "margin", "blocks",
-                "spares / repair / options"):
+    for col in (
+        "die",
+        "copies",
+        "process",
+        "D target /cm^2",
+        "margin",
+        "blocks",
+        "spares / repair / options",
+    ):
         table.add_column(col)
     for die in result.dies:
-        options = ", ".join(
-            [f"{k} +{v} spare" for k, v in die.spares.items()]
-            + [f"{k} {v} repairs" for k, v in die.repair.items()]
-            + ([f"critical-area option {die.critical_area_option}"]
-               if die.critical_area_option else [])
-        ) or "-"
+        options = (
+            ", ".join(
+                [f"{k} +{v} spare" for k, v in die.spares.items()]
+                + [f"{k} {v} repairs" for k, v in die.repair.items()]
+                + (
+                    [f"critical-area option {die.critical_area_option}"]
+                    if die.critical_area_option
+                    else []
+                )
+            )
+            or "-"
+        )
         margin = f"{die.sigma_margin:g} sigma" if math.isfinite(die.sigma_margin) else "-"
-        table.add_row(die.name, str(die.copies), die.process, f"{die.defect_density_per_cm2:.4g}",
-                      margin, ", ".join(f"{n} x{c}" for n, c in die.blocks.items()), options)
+        table.add_row(
+            die.name,
+            str(die.copies),
+            die.process,
+            f"{die.defect_density_per_cm2:.4g}",
+            margin,
+            ", ".join(f"{n} x{c}" for n, c in die.blocks.items()),
+            options,
+        )
     return table
 
 
@@ -304,10 +371,16 @@ def mandate_view(priced) -> Group:
     table.add_column("")
     table.add_column("design")
     table.add_column("profit", justify="right")
-    table.add_row("without the mandate", Text(short_design(priced.free.best)),
-                  money(priced.free.best.profit, cur))
-    table.add_row("under the mandate", Text(short_design(priced.mandated.best)),
-                  money(priced.mandated.best.profit, cur))
+    table.add_row(
+        "without the mandate",
+        Text(short_design(priced.free.best)),
+        money(priced.free.best.profit, cur),
+    )
+    table.add_row(
+        "under the mandate",
+        Text(short_design(priced.mandated.best)),
+        money(priced.mandated.best.profit, cur),
+    )
     need = {k: v for k, v in priced.requirements.model_dump().items() if v is not None}
     text = Text(
         f"The mandate {need} costs {money(priced.profit_lost, cur)} of profit "

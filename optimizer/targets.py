@@ -10,7 +10,6 @@
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -45,14 +44,19 @@ class RequirementReport:
 
 
 def price_requirements(
-    problem: Problem, requirements: Requirements, top: int = 3, source: str = "<problem>",
+    problem: Problem,
+    requirements: Requirements,
+    top: int = 3,
+    source: str = "<problem>",
     time_limit: float | None = None,
 ) -> RequirementReport:
     """Solve with and without the mandated targets (the file's own requirements dropped)."""
-    free = solve(problem, top=top, requirements=Requirements(), source=source,
-                 time_limit=time_limit)
-    mandated = solve(problem, top=top, requirements=requirements, source=source,
-                     time_limit=time_limit)
+    free = solve(
+        problem, top=top, requirements=Requirements(), source=source, time_limit=time_limit
+    )
+    mandated = solve(
+        problem, top=top, requirements=requirements, source=source, time_limit=time_limit
+    )
     return RequirementReport(requirements, free, mandated)
 
 
@@ -168,22 +172,40 @@ def profit_curve_figure(frame: pd.DataFrame, currency: str, mandated_yield: floa
     ax.plot(x_in, inside["profit"] / 1e6, color="tab:blue", label="profit")
     if len(tail):
         joined = pd.concat([inside.tail(1), tail])
-        ax.plot(100 * joined["hard_yield"], joined["profit"] / 1e6, color="tab:blue",
-                linestyle="--", label="profit (curve extended past its floor)")
+        ax.plot(
+            100 * joined["hard_yield"],
+            joined["profit"] / 1e6,
+            color="tab:blue",
+            linestyle="--",
+            label="profit (curve extended past its floor)",
+        )
     best = inside.loc[inside["profit"].idxmax()]
-    ax.axvline(100 * best["hard_yield"], color="tab:green", linestyle=":",
-               label=f"optimum {100 * best['hard_yield']:.2f}%")
+    ax.axvline(
+        100 * best["hard_yield"],
+        color="tab:green",
+        linestyle=":",
+        label=f"optimum {100 * best['hard_yield']:.2f}%",
+    )
     if mandated_yield is not None:
-        ax.axvline(100 * mandated_yield, color="tab:red", linestyle="-.",
-                   label=f"mandated {100 * mandated_yield:.2f}%")
-    ax.set_xlabel(f"yield target: defect-limited yield of the largest die on {frame.attrs.get('process', '')} [%]")
+        ax.axvline(
+            100 * mandated_yield,
+            color="tab:red",
+            linestyle="-.",
+            label=f"mandated {100 * mandated_yield:.2f}%",
+        )
+    process = frame.attrs.get("process", "")
+    ax.set_xlabel(f"yield target: defect-limited yield of the largest die on {process} [%]")
     ax.set_ylabel(f"profit [M {currency}]")
     right = ax.twinx()
     right.plot(x_in, inside["cost_per_good_unit"], color="tab:orange", label="cost per good unit")
     if len(tail):
         joined = pd.concat([inside.tail(1), tail])
-        right.plot(100 * joined["hard_yield"], joined["cost_per_good_unit"], color="tab:orange",
-                   linestyle="--")
+        right.plot(
+            100 * joined["hard_yield"],
+            joined["cost_per_good_unit"],
+            color="tab:orange",
+            linestyle="--",
+        )
     right.set_ylabel(f"cost per good unit [{currency}]")
     lines = ax.get_legend_handles_labels()
     more = right.get_legend_handles_labels()

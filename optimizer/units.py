@@ -52,28 +52,29 @@ def to_base(value: object, kind: QuantityKind) -> float:
     """Convert a quantity string such as ``"120 mm^2"`` to a float in ``kind.base_unit``."""
     if isinstance(value, bool) or not isinstance(value, str):
         raise UnitError(
-            f"expected {_article(kind.name)} written with its unit as a string, e.g. \"{kind.example}\""
+            f"expected {_article(kind.name)} written with its unit as a string, "
+            f'e.g. "{kind.example}"'
         )
     try:
         quantity = _parse(value.strip())
     except Exception as exc:  # pint raises several error types for unreadable text
         raise UnitError(
-            f"cannot read {value!r} as {_article(kind.name)}; write it like \"{kind.example}\""
+            f'cannot read {value!r} as {_article(kind.name)}; write it like "{kind.example}"'
         ) from exc
     if not isinstance(quantity, pint.Quantity) or quantity.unitless:
         raise UnitError(
-            f"{value!r} has no unit; write the {kind.name} with its unit, e.g. \"{kind.example}\""
+            f'{value!r} has no unit; write the {kind.name} with its unit, e.g. "{kind.example}"'
         )
     if kind.needs_data_unit:
         unit_text = str(quantity.units)
         if "byte" not in unit_text and "bit" not in unit_text:
             raise UnitError(
-                f"{value!r} is not {_article(kind.name)}; name bytes or bits, e.g. \"{kind.example}\""
+                f'{value!r} is not {_article(kind.name)}; name bytes or bits, e.g. "{kind.example}"'
             )
     try:
         return float(quantity.to(kind.base_unit).magnitude)
     except pint.DimensionalityError as exc:
         raise UnitError(
             f"{value!r} has the wrong dimension for {_article(kind.name)} "
-            f"({quantity.dimensionality}); write it like \"{kind.example}\""
+            f'({quantity.dimensionality}); write it like "{kind.example}"'
         ) from exc

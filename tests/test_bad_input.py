@@ -16,7 +16,7 @@ runner = CliRunner()
 CASES = [
     # (id, edits, words the message must contain)
     ("malformed_toml", [("unit_price = 500.0", "unit_price = = 500")], ["not valid TOML"]),
-    ("missing_field", [('wafer_cost = 10000.0\n', "")], ["process[fast].wafer_cost", "missing"]),
+    ("missing_field", [("wafer_cost = 10000.0\n", "")], ["process[fast].wafer_cost", "missing"]),
     (
         "wrong_dimension",
         [('defect_density = "0.1 /cm^2"', 'defect_density = "0.1 mm"')],
@@ -36,8 +36,10 @@ CASES = [
     ),
     (
         "block_on_no_die",
-        [("copies = 2\nblocks = { compute = 1 }", "copies = 1\nblocks = { compute = 1 }"),
-         ("blocks = { io = 1 }", "blocks = { compute = 1 }")],
+        [
+            ("copies = 2\nblocks = { compute = 1 }", "copies = 1\nblocks = { compute = 1 }"),
+            ("blocks = { io = 1 }", "blocks = { compute = 1 }"),
+        ],
         ["design[split].die", "block 'io' is placed on no die"],
     ),
     (
@@ -55,8 +57,11 @@ CASES = [
         [('area = "150 mm^2"', 'area = "500 mm^2"')],
         ["design[mono].die", "reticle field"],
     ),
-    ("unknown_field", [("package_cost = 10.0\nfinal", "package_cost = 10.0\ncolour = 1\nfinal")],
-     ["packaging[single].colour", "not a known field"]),
+    (
+        "unknown_field",
+        [("package_cost = 10.0\nfinal", "package_cost = 10.0\ncolour = 1\nfinal")],
+        ["packaging[single].colour", "not a known field"],
+    ),
     (
         "unknown_yield_model",
         [('yield_model = "poisson"', 'yield_model = "gaussian"')],

@@ -21,7 +21,13 @@ def test_evaluate_json_has_the_documented_fields(write_problem, tiny_text):
         assert key in payload
     assert payload["design"] == "split"
     for die in payload["dies"]:
-        for key in ("area_mm2", "gross_dies_per_wafer", "die_yield", "cost_per_passed_die", "copies"):
+        for key in (
+            "area_mm2",
+            "gross_dies_per_wafer",
+            "die_yield",
+            "cost_per_passed_die",
+            "copies",
+        ):
             assert key in die
     assert [d["copies"] for d in payload["dies"]] == [2, 1]
     # profit = price x volume - volume x cost per good unit (which includes the NRE share)

@@ -120,11 +120,15 @@ def test_identical_dies_pay_nre_once(tiny_text, write_problem):
     # Reuse of a die design: two copies of one die pay one mask set and one design cost.
     problem = load_problem(write_problem(tiny_text))
     ev = Evaluator(problem)
-    two = [DieSpec("fast", {"compute": 1}, {}, {}, copies=2, name="a"),
-           DieSpec("cheap", {"io": 1}, {}, {}, name="io")]
-    one_each = [DieSpec("fast", {"compute": 1}, {}, {}, name="a"),
-                DieSpec("fast", {"compute": 1}, {"compute": 1}, {}, name="b"),
-                DieSpec("cheap", {"io": 1}, {}, {}, name="io")]
+    two = [
+        DieSpec("fast", {"compute": 1}, {}, {}, copies=2, name="a"),
+        DieSpec("cheap", {"io": 1}, {}, {}, name="io"),
+    ]
+    one_each = [
+        DieSpec("fast", {"compute": 1}, {}, {}, name="a"),
+        DieSpec("fast", {"compute": 1}, {"compute": 1}, {}, name="b"),
+        DieSpec("cheap", {"io": 1}, {}, {}, name="io"),
+    ]
     a = evaluate_specs(ev, two, "multi")
     b = evaluate_specs(ev, one_each, "multi")
     second_design = 5e6 + 2e6 + 1e4 * b.dies[1].area_mm2
@@ -135,16 +139,29 @@ def test_interposer_priced_as_a_die():
     # The interposer is a die on its process: cost per good one = wafer cost / (gross x Y).
     data = chiplet_problem(400.0, 2, 0.1, 5000.0, 1.0)
     data["process"][0]["die_count"] = "exact"
-    data["process"].append({
-        "name": "old", "wafer_diameter": "300 mm", "wafer_cost": 2000.0,
-        "defect_density": "0.05 /cm^2", "yield_model": "poisson", "scribe_width": "0 mm",
-        "edge_exclusion": "0 mm", "reticle_width": "1000 mm", "reticle_height": "1000 mm",
-    })
-    data["packaging"][0].update({
-        "kind": "silicon_interposer", "interposer_process": "old",
-        "interposer_area_factor": 1.25, "interposer_extra_area": "50 mm^2",
-        "interposer_defect_sensitivity": 0.2, "carrier_cost": 7.0,
-    })
+    data["process"].append(
+        {
+            "name": "old",
+            "wafer_diameter": "300 mm",
+            "wafer_cost": 2000.0,
+            "defect_density": "0.05 /cm^2",
+            "yield_model": "poisson",
+            "scribe_width": "0 mm",
+            "edge_exclusion": "0 mm",
+            "reticle_width": "1000 mm",
+            "reticle_height": "1000 mm",
+        }
+    )
+    data["packaging"][0].update(
+        {
+            "kind": "silicon_interposer",
+            "interposer_process": "old",
+            "interposer_area_factor": 1.25,
+            "interposer_extra_area": "50 mm^2",
+            "interposer_defect_sensitivity": 0.2,
+            "carrier_cost": 7.0,
+        }
+    )
     ev = Evaluator(parse_problem(data))
     cost = ev.carrier_cost(ev.problem.packaging[0], np.array([400.0])).cost[0]
     from optimizer.formulas.wafer import gross_dies_exact

@@ -54,7 +54,9 @@ def random_problem(seed: int) -> dict:
             "sort_cost_per_die": float(rng.uniform(0.2, 3)),
             "fault_coverage": float(rng.choice([1.0, rng.uniform(0.9, 0.999)])),
             "systematic_yield": float(rng.uniform(0.95, 1.0)),
-            "area_scale": {k: float(rng.uniform(1.0, 2.5)) for k in ("logic", "memory", "analog", "io")},
+            "area_scale": {
+                k: float(rng.uniform(1.0, 2.5)) for k in ("logic", "memory", "analog", "io")
+            },
         }
         if model == "negative_binomial":
             proc["clustering_alpha"] = float(rng.uniform(0.5, 4))
@@ -98,13 +100,21 @@ def random_problem(seed: int) -> dict:
     links = []
     for _ in range(int(rng.integers(0, 4))):
         a, b = rng.choice(n_blocks, size=2, replace=False)
-        links.append({"blocks": [f"b{a}", f"b{b}"], "bandwidth": f"{rng.uniform(10, 800):.1f} GB/s"})
+        links.append(
+            {"blocks": [f"b{a}", f"b{b}"], "bandwidth": f"{rng.uniform(10, 800):.1f} GB/s"}
+        )
     return {
-        "market": {"unit_price": float(rng.uniform(300, 3000)), "volume": float(rng.uniform(1e4, 1e6))},
+        "market": {
+            "unit_price": float(rng.uniform(300, 3000)),
+            "volume": float(rng.uniform(1e4, 1e6)),
+        },
         "constraints": {"max_dies": 4, "max_die_area": "700 mm^2"},
         "process": processes,
         "packaging": packagings,
-        "design_cost": {"per_die_design": float(rng.uniform(0, 5e6)), "per_mm2": float(rng.uniform(0, 3e4))},
+        "design_cost": {
+            "per_die_design": float(rng.uniform(0, 5e6)),
+            "per_mm2": float(rng.uniform(0, 3e4)),
+        },
         "block": blocks,
         "link": links,
     }
@@ -203,8 +213,9 @@ def test_reusing_one_die_design_wins_through_nre():
     # the exhaustive reference agrees.
     data = slice_problem(4, 480.0, 0.1, 3.0)
     data["design_cost"] = {"per_die_design": 3e7}
-    data["process"].append(dict(data["process"][0], name="q", wafer_cost=9000.0,
-                                defect_density="0.12 /cm^2"))
+    data["process"].append(
+        dict(data["process"][0], name="q", wafer_cost=9000.0, defect_density="0.12 /cm^2")
+    )
     problem = parse_problem(data)
     ours, brute = solve(problem, top=1), solve(problem, top=1, method="exhaustive")
     assert_allclose(ours.best.profit, brute.best.profit, rtol=1e-9)
@@ -215,16 +226,35 @@ def hetero_problem() -> dict:
     return {
         "market": {"unit_price": 800.0, "volume": 5e5},
         "process": [
-            {"name": "new", "wafer_diameter": "300 mm", "wafer_cost": 16000.0,
-             "defect_density": "0.1 /cm^2", "yield_model": "poisson", "mask_set_cost": 1e7},
-            {"name": "old", "wafer_diameter": "300 mm", "wafer_cost": 3000.0,
-             "defect_density": "0.05 /cm^2", "yield_model": "poisson", "mask_set_cost": 1e6,
-             "area_scale": {"logic": 5.0, "memory": 4.0, "analog": 1.05, "io": 1.0}},
+            {
+                "name": "new",
+                "wafer_diameter": "300 mm",
+                "wafer_cost": 16000.0,
+                "defect_density": "0.1 /cm^2",
+                "yield_model": "poisson",
+                "mask_set_cost": 1e7,
+            },
+            {
+                "name": "old",
+                "wafer_diameter": "300 mm",
+                "wafer_cost": 3000.0,
+                "defect_density": "0.05 /cm^2",
+                "yield_model": "poisson",
+                "mask_set_cost": 1e6,
+                "area_scale": {"logic": 5.0, "memory": 4.0, "analog": 1.05, "io": 1.0},
+            },
         ],
         "packaging": [
             {"name": "single", "kind": "single_die", "package_cost": 8.0},
-            {"name": "mcm", "kind": "organic_substrate", "max_dies": 3, "bond_cost_per_die": 1.0,
-             "carrier_cost": 4.0, "package_cost": 8.0, "interface_density": "200 GB/s/mm^2"},
+            {
+                "name": "mcm",
+                "kind": "organic_substrate",
+                "max_dies": 3,
+                "bond_cost_per_die": 1.0,
+                "carrier_cost": 4.0,
+                "package_cost": 8.0,
+                "interface_density": "200 GB/s/mm^2",
+            },
         ],
         "design_cost": {"per_die_design": 2e6},
         "block": [
@@ -252,9 +282,16 @@ def test_spares_chosen_only_when_they_pay(density, expect_spares):
     # area costs; with almost none it is pure overhead. Brute force agrees.
     data = {
         "market": {"unit_price": 900.0, "volume": 2e5},
-        "process": [{"name": "p", "wafer_diameter": "300 mm", "wafer_cost": 12000.0,
-                     "defect_density": f"{density} /cm^2", "yield_model": "negative_binomial",
-                     "clustering_alpha": 2.0}],
+        "process": [
+            {
+                "name": "p",
+                "wafer_diameter": "300 mm",
+                "wafer_cost": 12000.0,
+                "defect_density": f"{density} /cm^2",
+                "yield_model": "negative_binomial",
+                "clustering_alpha": 2.0,
+            }
+        ],
         "packaging": [{"name": "single", "kind": "single_die", "package_cost": 5.0}],
         "block": [
             {"name": "core", "area": "20 mm^2", "count": 16, "spare_choices": [0, 1, 2]},
@@ -306,11 +343,15 @@ def test_solve_command_writes_run_folder_and_json(tmp_path, write_problem, tiny_
     payload = json.loads(result.stdout)
     folder = out / payload["run_folder"].split("/")[-1]
     assert {p.name for p in folder.iterdir()} == {
-        "solution.json", "ranked.csv", "solver.log", "problem.toml"
+        "solution.json",
+        "ranked.csv",
+        "solver.log",
+        "problem.toml",
     }
     assert payload["proven_optimal"] is True
-    assert payload["best"]["profit"] == pytest.approx(json.loads(
-        (folder / "solution.json").read_text())["best"]["profit"])
+    assert payload["best"]["profit"] == pytest.approx(
+        json.loads((folder / "solution.json").read_text())["best"]["profit"]
+    )
 
 
 @pytest.mark.parametrize("name", ["server_processor", "edge_accelerator"])

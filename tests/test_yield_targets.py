@@ -30,11 +30,22 @@ runner = CliRunner()
 
 def one_die_problem(area_mm2=300.0, d_base=0.3, volume=2e5, k=4e6, **process_extra) -> dict:
     process = {
-        "name": "p", "wafer_diameter": "300 mm", "edge_exclusion": "0 mm", "scribe_width": "0 mm",
-        "wafer_cost": 10000.0, "defect_density": f"{d_base} /cm^2", "yield_model": "poisson",
-        "die_count": "area_ratio", "reticle_width": "1000 mm", "reticle_height": "1000 mm",
-        "defect_reduction": {"form": "log_ratio", "floor": "0.001 /cm^2", "one_time_per_log": k,
-                             "levels": 6},
+        "name": "p",
+        "wafer_diameter": "300 mm",
+        "edge_exclusion": "0 mm",
+        "scribe_width": "0 mm",
+        "wafer_cost": 10000.0,
+        "defect_density": f"{d_base} /cm^2",
+        "yield_model": "poisson",
+        "die_count": "area_ratio",
+        "reticle_width": "1000 mm",
+        "reticle_height": "1000 mm",
+        "defect_reduction": {
+            "form": "log_ratio",
+            "floor": "0.001 /cm^2",
+            "one_time_per_log": k,
+            "levels": 6,
+        },
     }
     process.update(process_extra)
     return {
@@ -45,8 +56,9 @@ def one_die_problem(area_mm2=300.0, d_base=0.3, volume=2e5, k=4e6, **process_ext
     }
 
 
-@pytest.mark.parametrize("area_mm2, volume, k", [(300.0, 2e5, 4e6), (120.0, 1e6, 1e6),
-                                                 (600.0, 5e4, 2e7)])
+@pytest.mark.parametrize(
+    "area_mm2, volume, k", [(300.0, 2e5, 4e6), (120.0, 1e6, 1e6), (600.0, 5e4, 2e7)]
+)
 def test_optimal_defect_target_matches_lambert_w(area_mm2, volume, k):
     # Closed form: Poisson yield, one die of area A, cost per die c, volume V, one-time cost
     # k ln(D_base / D). Profit'(D) = 0 gives A D* = W(k / (V c)); reference library:
@@ -83,16 +95,41 @@ def test_salvage_revenue_by_hand():
     # net revenue = units x (bin price - (package + final test) / package yield).
     d, a_core, a0 = 0.5, 0.6, 1.5  # /cm^2, cm^2, cm^2
     data = {
-        "market": {"unit_price": 600.0, "volume": 1e5,
-                   "salvage_bin": [{"name": "three", "block": "core", "min_good": 3,
-                                    "unit_price": 250.0, "demand": 1e9}]},
-        "process": [{"name": "p", "wafer_diameter": "300 mm", "wafer_cost": 8000.0,
-                     "defect_density": f"{d} /cm^2", "yield_model": "poisson"}],
-        "packaging": [{"name": "s", "kind": "single_die", "package_cost": 12.0,
-                       "final_test_cost": 3.0, "package_yield": 0.98}],
-        "block": [{"name": "core", "area": f"{a_core * 100} mm^2", "count": 4,
-                   "spare_choices": [0, 1]},
-                  {"name": "rest", "area": f"{a0 * 100} mm^2"}],
+        "market": {
+            "unit_price": 600.0,
+            "volume": 1e5,
+            "salvage_bin": [
+                {
+                    "name": "three",
+                    "block": "core",
+                    "min_good": 3,
+                    "unit_price": 250.0,
+                    "demand": 1e9,
+                }
+            ],
+        },
+        "process": [
+            {
+                "name": "p",
+                "wafer_diameter": "300 mm",
+                "wafer_cost": 8000.0,
+                "defect_density": f"{d} /cm^2",
+                "yield_model": "poisson",
+            }
+        ],
+        "packaging": [
+            {
+                "name": "s",
+                "kind": "single_die",
+                "package_cost": 12.0,
+                "final_test_cost": 3.0,
+                "package_yield": 0.98,
+            }
+        ],
+        "block": [
+            {"name": "core", "area": f"{a_core * 100} mm^2", "count": 4, "spare_choices": [0, 1]},
+            {"name": "rest", "area": f"{a0 * 100} mm^2"},
+        ],
     }
     problem = parse_problem(data)
     spec = DieSpec("p", {"core": 4, "rest": 1}, {"core": 1}, {})
@@ -106,8 +143,15 @@ def test_salvage_revenue_by_hand():
     assert_allclose(result.salvage_units["three"], units, rtol=1e-10)
     assert_allclose(result.salvage_revenue, net, rtol=1e-10)
     # demand caps the bin
-    capped = parse_problem({**data, "market": {**data["market"], "salvage_bin": [
-        {**data["market"]["salvage_bin"][0], "demand": 1000.0}]}})
+    capped = parse_problem(
+        {
+            **data,
+            "market": {
+                **data["market"],
+                "salvage_bin": [{**data["market"]["salvage_bin"][0], "demand": 1000.0}],
+            },
+        }
+    )
     result = evaluate_specs(Evaluator(capped), [spec], "s")
     assert_allclose(result.salvage_units["three"], 1000.0)
 
@@ -117,16 +161,38 @@ def test_salvage_revenue_changes_the_choice_of_spares():
     # that buys partly good dies at nearly full price, the spare's area is no longer worth
     # it. The solver weighs salvage revenue in the choice (brute force agrees).
     def problem_with(bin_price):
-        return parse_problem({
-            "market": {"unit_price": 400.0, "volume": 2e5, "salvage_bin": [
-                {"name": "lite", "block": "core", "min_good": 6, "unit_price": bin_price,
-                 "demand": 1e7}]},
-            "process": [{"name": "p", "wafer_diameter": "300 mm", "wafer_cost": 9000.0,
-                         "defect_density": "0.3 /cm^2", "yield_model": "poisson"}],
-            "packaging": [{"name": "s", "kind": "single_die", "package_cost": 4.0}],
-            "block": [{"name": "core", "area": "40 mm^2", "count": 8, "spare_choices": [0, 1]},
-                      {"name": "rest", "area": "30 mm^2"}],
-        })
+        return parse_problem(
+            {
+                "market": {
+                    "unit_price": 400.0,
+                    "volume": 2e5,
+                    "salvage_bin": [
+                        {
+                            "name": "lite",
+                            "block": "core",
+                            "min_good": 6,
+                            "unit_price": bin_price,
+                            "demand": 1e7,
+                        }
+                    ],
+                },
+                "process": [
+                    {
+                        "name": "p",
+                        "wafer_diameter": "300 mm",
+                        "wafer_cost": 9000.0,
+                        "defect_density": "0.3 /cm^2",
+                        "yield_model": "poisson",
+                    }
+                ],
+                "packaging": [{"name": "s", "kind": "single_die", "package_cost": 4.0}],
+                "block": [
+                    {"name": "core", "area": "40 mm^2", "count": 8, "spare_choices": [0, 1]},
+                    {"name": "rest", "area": "30 mm^2"},
+                ],
+            }
+        )
+
     for price, spares in ((1.0, True), (390.0, False)):
         problem = problem_with(price)
         ours, brute = solve(problem, top=1), solve(problem, top=1, method="exhaustive")
@@ -144,10 +210,17 @@ def target_problem(seed: int) -> dict:
     data["link"] = [link for link in data["link"] if set(link["blocks"]) <= names]
     for proc in data["process"]:
         base = float(proc["defect_density"].split()[0])
-        proc["defect_reduction"] = {"form": "table", "points": [
-            [f"{base * 0.6} /cm^2", float(rng.uniform(1e5, 3e6)), float(rng.uniform(0, 200))]]}
-        proc["margin"] = {"two_sided": bool(rng.random() < 0.5), "sigma": [2.5, 4.0],
-                          "area_overhead": [0.0, float(rng.uniform(0, 0.05))]}
+        proc["defect_reduction"] = {
+            "form": "table",
+            "points": [
+                [f"{base * 0.6} /cm^2", float(rng.uniform(1e5, 3e6)), float(rng.uniform(0, 200))]
+            ],
+        }
+        proc["margin"] = {
+            "two_sided": bool(rng.random() < 0.5),
+            "sigma": [2.5, 4.0],
+            "area_overhead": [0.0, float(rng.uniform(0, 0.05))],
+        }
     data["critical_area_reduction"] = {"sensitivity_factor": [0.8], "area_overhead": [0.04]}
     return data
 
@@ -165,15 +238,21 @@ def test_joint_optimum_equals_exhaustive_over_target_grid(seed):
         return
     ours = solve(problem, top=2)
     assert ours.proven_optimal
-    assert_allclose([d.profit for d in ours.designs], [d.profit for d in brute.designs[:len(ours.designs)]],
-                    rtol=1e-9)
+    assert_allclose(
+        [d.profit for d in ours.designs],
+        [d.profit for d in brute.designs[: len(ours.designs)]],
+        rtol=1e-9,
+    )
 
 
 def test_margin_choice_follows_the_normal_tail():
     # Soft yield of the chosen margin equals 2 Phi(k) - 1 (two-sided) from scipy.stats.norm.
     data = one_die_problem(200.0)
-    data["process"][0]["margin"] = {"two_sided": True, "sigma": [2.0, 3.0, 4.0],
-                                    "area_overhead": [0.0, 0.01, 0.03]}
+    data["process"][0]["margin"] = {
+        "two_sided": True,
+        "sigma": [2.0, 3.0, 4.0],
+        "area_overhead": [0.0, 0.01, 0.03],
+    }
     best = solve(parse_problem(data), top=1).best
     k = best.dies[0].sigma_margin
     assert k in (2.0, 3.0, 4.0)
@@ -186,8 +265,20 @@ def test_mandated_six_sigma_is_priced_on_server_demo_and_impossible_one_explaine
     import json
 
     out = tmp_path / "r"
-    ok = runner.invoke(app, ["solve", "problems/server_processor.toml", "--require-sigma", "6",
-                             "--results", str(out), "--top", "1", "--json"])
+    ok = runner.invoke(
+        app,
+        [
+            "solve",
+            "problems/server_processor.toml",
+            "--require-sigma",
+            "6",
+            "--results",
+            str(out),
+            "--top",
+            "1",
+            "--json",
+        ],
+    )
     assert ok.exit_code == 0, ok.output
     payload = json.loads(ok.stdout)
     assert payload["mandate"]["profit_lost"] > 0
@@ -196,8 +287,10 @@ def test_mandated_six_sigma_is_priced_on_server_demo_and_impossible_one_explaine
     saved = json.loads((Path(payload["run_folder"]) / "solution.json").read_text())
     assert saved["mandate"]["profit_lost"] == payload["mandate"]["profit_lost"]
     # the edge demo's margin curves stop at 4.5 sigma: 6 sigma cannot be met, and it says why
-    bad = runner.invoke(app, ["solve", "problems/edge_accelerator.toml", "--require-sigma", "6",
-                              "--results", str(out)])
+    bad = runner.invoke(
+        app,
+        ["solve", "problems/edge_accelerator.toml", "--require-sigma", "6", "--results", str(out)],
+    )
     assert bad.exit_code == 2
     assert "required design margin (sigma) at least 6 cannot be met" in bad.stderr
 
@@ -225,10 +318,22 @@ area = "300 mm^2"
 """
     )
     out = tmp_path / "r"
-    result = runner.invoke(app, ["profit-curve", str(path), "--points", "21", "--results", str(out),
-                                 "--require-die-yield", "0.95"])
+    result = runner.invoke(
+        app,
+        [
+            "profit-curve",
+            str(path),
+            "--points",
+            "21",
+            "--results",
+            str(out),
+            "--require-die-yield",
+            "0.95",
+        ],
+    )
     assert result.exit_code == 0, result.output
     folder = next(out.iterdir())
     assert {"profit_curve.csv", "profit_curve.png", "profit_curve.svg"} <= {
-        p.name for p in folder.iterdir()}
+        p.name for p in folder.iterdir()
+    }
     assert "rises without bound as the target approaches 100%: yes" in result.stdout

@@ -116,9 +116,7 @@ def solve(
                 raise ProblemError(source, "requirements", reason)
         if outcome.proven:
             raise ProblemError(source, "constraints", explain_infeasible(evaluator))
-        raise ProblemError(
-            source, "", "no design found within the time limit; raise --time-limit"
-        )
+        raise ProblemError(source, "", "no design found within the time limit; raise --time-limit")
     designs = []
     refined = False
     for rank, item in enumerate(outcome.ranked, start=1):
@@ -134,8 +132,7 @@ def solve(
     difference = explain_difference(designs[0], designs[1]) if len(designs) > 1 else []
     if refined:
         outcome.log.append(
-            "winner's defect-density targets refined continuously: "
-            f"profit {designs[0].profit:.10g}"
+            f"winner's defect-density targets refined continuously: profit {designs[0].profit:.10g}"
         )
     gap = relative_gap(outcome, evaluator)
     return Solution(

@@ -97,8 +97,19 @@ def _variants(evaluator: Evaluator, contents: np.ndarray, packaging) -> tuple[Di
     parts: dict[str, list[np.ndarray]] = {
         k: []
         for k in (
-            "process", "instances", "spares", "repairs", "level", "critical", "density",
-            "adder", "one_time", "sigma", "margin_overhead", "sens", "crit_overhead",
+            "process",
+            "instances",
+            "spares",
+            "repairs",
+            "level",
+            "critical",
+            "density",
+            "adder",
+            "one_time",
+            "sigma",
+            "margin_overhead",
+            "sens",
+            "crit_overhead",
         )
     }
     for combo in combo_arr:
@@ -122,8 +133,12 @@ def _variants(evaluator: Evaluator, contents: np.ndarray, packaging) -> tuple[Di
                         parts["level"].append(np.full(m, level, dtype=np.int64))
                         parts["critical"].append(np.full(m, k, dtype=np.int64))
                         for key, value in (
-                            ("density", density), ("adder", adder), ("one_time", one_time),
-                            ("sigma", sigma), ("margin_overhead", overhead), ("sens", sens),
+                            ("density", density),
+                            ("adder", adder),
+                            ("one_time", one_time),
+                            ("sigma", sigma),
+                            ("margin_overhead", overhead),
+                            ("sens", sens),
                             ("crit_overhead", crit_overhead),
                         ):
                             parts[key].append(np.full(m, value, dtype=float))
@@ -165,7 +180,9 @@ def pareto_keep(group: np.ndarray, metrics: np.ndarray, depth: int = 1) -> np.nd
         le = np.all(block[None, :, :] <= block[:, None, :], axis=2)  # le[i, j]: j <= i
         lt = np.any(block[None, :, :] < block[:, None, :], axis=2)
         idx = np.arange(size)
-        tie_first = np.all(block[None, :, :] == block[:, None, :], axis=2) & (idx[None, :] < idx[:, None])
+        tie_first = np.all(block[None, :, :] == block[:, None, :], axis=2) & (
+            idx[None, :] < idx[:, None]
+        )
         dominators = ((le & lt) | tie_first).sum(axis=1)
         keep_sorted[start : start + size] = dominators < depth
     keep = np.empty(len(g), dtype=bool)
@@ -235,9 +252,7 @@ def build_candidates(
     # (no target, nothing shared), each (process, target) of a curve process on its own.
     curve = np.array([p.defect_reduction is not None for p in problem.process])
     spend_key = np.where(curve[process[idx]], 1 + process[idx] * 1000 + extra["level"][idx], 0)
-    _, group = np.unique(
-        np.column_stack([inst[idx], spend_key]), axis=0, return_inverse=True
-    )
+    _, group = np.unique(np.column_stack([inst[idx], spend_key]), axis=0, return_inverse=True)
     metrics = np.column_stack(
         [
             prices.cost_per_passed_die[idx],
@@ -250,7 +265,9 @@ def build_candidates(
         idx = idx[pareto_keep(group.ravel(), metrics, depth)]
     inst_k = inst[idx]
     with np.errstate(divide="ignore"):
-        per_block = np.where(inst_k > 0, blocks.count[None, :] // np.maximum(inst_k, 1), np.iinfo(np.int64).max)
+        per_block = np.where(
+            inst_k > 0, blocks.count[None, :] // np.maximum(inst_k, 1), np.iinfo(np.int64).max
+        )
     cap = min(packaging.max_dies, limits.max_dies)
     max_copies = np.minimum(per_block.min(axis=1), cap)
     return CandidateSet(

@@ -47,7 +47,9 @@ def multiset_partitions(
                 continue
             if all(p <= r for p, r in zip(part, remaining, strict=True)):
                 chosen.append(part)
-                yield from rec(tuple(r - p for r, p in zip(remaining, part, strict=True)), part, chosen)
+                yield from rec(
+                    tuple(r - p for r, p in zip(remaining, part, strict=True)), part, chosen
+                )
                 chosen.pop()
 
     yield from rec(tuple(total), tuple(total), [])
@@ -105,33 +107,18 @@ def exhaustive_search(
             variants.setdefault(key, []).append(i)
         n_max = min(packaging.max_dies, problem.constraints.max_dies)
         buffers: dict[int, list[np.ndarray]] = {}
-
-        def flush(width: int) -> None:
-            nonlocal designs
-            rows = np.concatenate(buffers.pop(width))
-            designs += len(rows)
-            slot_die, slot_copies = _slots(rows)
-            product = evaluator.assemble(g, cset.prices, slot_die, slot_copies)
-            # total cost = revenue - profit: volume x cost + one-time costs - salvage
-            cost = revenue - product.profit
-            take = np.argsort(cost)[:top]
-            for i in take:
-                if math.isfinite(cost[i]):
-                    pairs = [(c, k) for c, k in zip(slot_die[i], slot_copies[i], strict=True) if k]
-                    best.append((float(cost[i]), Selection.of(g, pairs)))
-
         for partition in multiset_partitions(total, list(variants), n_max):
-            groups = [
-                (np.array(variants[key]), mult)
-                for key, mult in _group_counts(partition)
-            ]
+            groups = [(np.array(variants[key]), mult) for key, mult in _group_counts(partition)]
             rows = _assignments(groups)
-            width = rows.shape[1]
-            buffers.setdefault(width, []).append(rows)
-            if sum(len(r) for r in buffers[width]) >= CHUNK:
-                flush(width)
+            buffers.setdefault(rows.shape[1], []).append(rows)
+            if sum(len(r) for r in buffers[rows.shape[1]]) >= CHUNK:
+                designs += _price_batch(
+                    evaluator, cset, np.concatenate(buffers.pop(rows.shape[1])), top, revenue, best
+                )
         for width in list(buffers):
-            flush(width)
+            designs += _price_batch(
+                evaluator, cset, np.concatenate(buffers.pop(width)), top, revenue, best
+            )
     best.sort(key=lambda item: (item[0], item[1]))
     ranked = [RankedSelection(sel, cost, revenue - cost) for cost, sel in best[:top]]
     bound = ranked[0].total_cost if ranked else math.inf
@@ -145,6 +132,26 @@ def exhaustive_search(
         log=[f"priced {designs} complete designs"],
         stats={"designs_priced": designs},
     )
+
+
+def _price_batch(
+    evaluator: Evaluator,
+    cset: CandidateSet,
+    rows: np.ndarray,
+    top: int,
+    revenue: float,
+    best: list[tuple[float, Selection]],
+) -> int:
+    """Price a batch of variant assignments; keep its ``top`` best in ``best``."""
+    slot_die, slot_copies = _slots(rows)
+    product = evaluator.assemble(cset.packaging_index, cset.prices, slot_die, slot_copies)
+    # total cost = revenue - profit: volume x cost + one-time costs - salvage
+    cost = revenue - product.profit
+    for i in np.argsort(cost)[:top]:
+        if math.isfinite(cost[i]):
+            pairs = [(c, k) for c, k in zip(slot_die[i], slot_copies[i], strict=True) if k]
+            best.append((float(cost[i]), Selection.of(cset.packaging_index, pairs)))
+    return len(rows)
 
 
 def _group_counts(partition: list[tuple[int, ...]]) -> list[tuple[tuple[int, ...], int]]:

@@ -93,11 +93,13 @@ def explain_requirements(evaluator: Evaluator, requirements) -> str | None:
         checks.append(("die yield", prices.die_yield, requirements.min_die_yield, max, "at least"))
     if requirements.min_sigma_margin is not None:
         sigma = np.where(np.isfinite(prices.sigma_margin), prices.sigma_margin, -np.inf)
-        checks.append(("design margin (sigma)", sigma, requirements.min_sigma_margin, max,
-                       "at least"))
+        checks.append(
+            ("design margin (sigma)", sigma, requirements.min_sigma_margin, max, "at least")
+        )
     if requirements.max_defect_level is not None:
-        checks.append(("defect level", prices.defect_level, requirements.max_defect_level, min,
-                       "at most"))
+        checks.append(
+            ("defect level", prices.defect_level, requirements.max_defect_level, min, "at most")
+        )
     for label, values, limit, best_of, word in checks:
         for b, name in enumerate(blocks.names):
             mine = values[content_of == b]

@@ -174,7 +174,9 @@ def build_columns(evaluator: Evaluator, candidates: CandidateSet, n_dies: int) -
     factor = market.volume / (
         packaging.carrier_yield * packaging.package_yield * packaging.bond_yield**n_dies
     )
-    fixed = n_dies * packaging.bond_cost_per_die + packaging.package_cost + packaging.final_test_cost
+    fixed = (
+        n_dies * packaging.bond_cost_per_die + packaging.package_cost + packaging.final_test_cost
+    )
     blocks = evaluator.blocks
     unit_min = (blocks.area_mm2 * blocks.scale).min(axis=0)
     area_lo = float(count @ unit_min)
@@ -277,8 +279,11 @@ def target_rows(columns: Columns) -> tuple[sp.csr_matrix, np.ndarray, np.ndarray
         rows += [row] * len(ys)
         upper.append(1.0)
         row += 1
-        base = [g for g in range(len(columns.group_level))
-                if columns.group_process[g] == p and columns.group_level[g] == 0]
+        base = [
+            g
+            for g in range(len(columns.group_level))
+            if columns.group_process[g] == p and columns.group_level[g] == 0
+        ]
         members = np.flatnonzero(np.isin(columns.target_group, base))
         data += columns.col_k[members].astype(float).tolist() + [float(n)] * len(ys)
         cols += members.tolist() + [n_cols + j for j in ys]
@@ -334,9 +339,11 @@ def relax(columns: Columns) -> RelaxedBound:
         area_row = sp.csr_matrix(np.r_[columns.area, np.zeros(n_y), 0.0][None, :])
         pwl = sp.csr_matrix(
             np.column_stack(
-                [-columns.carrier_slopes[:, None] * columns.area[None, :],
-                 np.zeros((len(columns.carrier_slopes), n_y)),
-                 np.ones(len(columns.carrier_slopes))]
+                [
+                    -columns.carrier_slopes[:, None] * columns.area[None, :],
+                    np.zeros((len(columns.carrier_slopes), n_y)),
+                    np.ones(len(columns.carrier_slopes)),
+                ]
             )
         )
         a = sp.vstack([a, area_row, pwl], format="csr")
@@ -462,7 +469,9 @@ def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
             expr=LinearExpression(linear_coefs=area.tolist(), linear_vars=w) <= columns.area_cap
         )
         m.carrier_lb = pyo.ConstraintList()
-        for slope, intercept in zip(columns.carrier_slopes, columns.carrier_intercepts, strict=True):
+        for slope, intercept in zip(
+            columns.carrier_slopes, columns.carrier_intercepts, strict=True
+        ):
             m.carrier_lb.add(
                 m.carrier
                 >= LinearExpression(
@@ -499,7 +508,9 @@ def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
         sub.log.append(f"round {sub.rounds}: no selection left")
         return
     bound = result.objective_bound
-    sub.bound = max(sub.bound, float(bound)) if bound is not None and math.isfinite(bound) else sub.bound
+    sub.bound = (
+        max(sub.bound, float(bound)) if bound is not None and math.isfinite(bound) else sub.bound
+    )
     if result.incumbent_objective is None:
         sub.current = None  # time ran out before a selection was found
         sub.log.append(f"round {sub.rounds}: no selection found yet ({tc.name})")

@@ -41,12 +41,13 @@ def refine_targets(
                 continue
             lo, hi = math.log(curve.floor_per_cm2), math.log(process.defect_density_per_cm2)
 
-            def loss(log_d: float, pname=pname) -> float:
-                trial = with_target(best_specs, pname, math.exp(log_d))
+            def loss(log_d: float, pname=pname, start=best_specs) -> float:
+                trial = with_target(start, pname, math.exp(log_d))
                 return -evaluate_specs(evaluator, trial, packaging, name).profit
 
-            found = minimize_scalar(loss, bounds=(lo, hi), method="bounded",
-                                    options={"xatol": 1e-12, "maxiter": 500})
+            found = minimize_scalar(
+                loss, bounds=(lo, hi), method="bounded", options={"xatol": 1e-12, "maxiter": 500}
+            )
             candidates = [found.x, lo, hi]
             values = [loss(x) for x in candidates]
             x = candidates[min(range(3), key=values.__getitem__)]

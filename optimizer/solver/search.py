@@ -108,7 +108,9 @@ def milp_search(
     programs.sort(key=lambda item: item[0])
     if candidate_cache is not None:
         candidate_cache[key] = candidates
-    log.append(f"{len(programs)} (packaging, die count) programs in {time.perf_counter() - start:.2f} s")
+    log.append(
+        f"{len(programs)} (packaging, die count) programs in {time.perf_counter() - start:.2f} s"
+    )
 
     exact: dict[Selection, float] = {}
 

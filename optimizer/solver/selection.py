@@ -58,8 +58,12 @@ def selection_specs(
     for j, (c, k) in enumerate(selection.dies):
         inst = candidates.instances[c]
         blocks = {names[b]: int(inst[b]) for b in np.flatnonzero(inst)}
-        spares = {names[b]: int(candidates.spares[c, b]) for b in np.flatnonzero(candidates.spares[c])}
-        repair = {names[b]: int(candidates.repairs[c, b]) for b in np.flatnonzero(candidates.repairs[c])}
+        spares = {
+            names[b]: int(candidates.spares[c, b]) for b in np.flatnonzero(candidates.spares[c])
+        }
+        repair = {
+            names[b]: int(candidates.repairs[c, b]) for b in np.flatnonzero(candidates.repairs[c])
+        }
         specs.append(
             DieSpec(
                 process=problem.process[int(candidates.process[c])].name,
