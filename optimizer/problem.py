@@ -537,8 +537,51 @@ def validate_references(problem: Problem, source: str) -> None:
     for block in problem.block:
         if block.repair is not None and block.kind != "memory":
             fail(f"block[{block.name}].repair", "array repair applies to memory blocks only")
+    for j, sbin in enumerate(problem.market.salvage_bin):
+        where = f"market.salvage_bin[{sbin.name}]"
+        if sbin.block not in blocks:
+            fail(f"{where}.block", f"unknown block '{sbin.block}'; use one of {sorted(blocks)}")
+        if sbin.min_good >= blocks[sbin.block].count:
+            fail(
+                f"{where}.min_good",
+                f"must be below the block's count ({blocks[sbin.block].count}); a die with all "
+                "instances good is full spec",
+            )
+    n_critical = (
+        len(problem.critical_area_reduction.options())
+        if problem.critical_area_reduction is not None
+        else 1
+    )
     for design in problem.design:
         where = f"design[{design.name}]"
+        for pname, density in design.defect_targets.items():
+            if pname not in processes:
+                fail(
+                    f"{where}.defect_targets.{pname}",
+                    f"unknown process '{pname}'; use one of {sorted(processes)}",
+                )
+            process = processes[pname]
+            allowed = [d for d, _, _ in process.defect_targets()]
+            curve = process.defect_reduction
+            if (
+                curve is None
+                or (
+                    curve.form == "table" and not any(abs(a - density) <= 1e-9 * a for a in allowed)
+                )
+                or (
+                    curve.form == "log_ratio"
+                    and not (
+                        curve.floor_per_cm2 * (1 - 1e-12)
+                        <= density
+                        <= process.defect_density_per_cm2 * (1 + 1e-12)
+                    )
+                )
+            ):
+                fail(
+                    f"{where}.defect_targets.{pname}",
+                    f"{density:g} /cm^2 is not a target process '{pname}' offers; see its "
+                    "defect_reduction curve",
+                )
         if design.packaging not in packagings:
             fail(
                 f"{where}.packaging",
@@ -551,6 +594,11 @@ def validate_references(problem: Problem, source: str) -> None:
                 fail(
                     f"{die_where}.process",
                     f"unknown process '{die.process}'; use one of {sorted(processes)}",
+                )
+            if die.critical_area_option >= n_critical:
+                fail(
+                    f"{die_where}.critical_area_option",
+                    f"only options 0 to {n_critical - 1} exist; see [critical_area_reduction]",
                 )
             for table in ("blocks", "spares", "repair"):
                 for name in getattr(die, table):

@@ -96,3 +96,70 @@ def test_solve_writes_nothing_on_bad_input(write_problem, tmp_path):
     result = runner.invoke(app, ["solve", str(path), "--results", str(out)])
     assert result.exit_code == 2
     assert not out.exists() or not any(out.iterdir())
+
+
+TARGET_CASES = [
+    (
+        "salvage_unknown_block",
+        [
+            (
+                "volume = 100000\n",
+                'volume = 100000\nsalvage_bin = [{ name = "lo", block = "gpu", '
+                "min_good = 1, unit_price = 10.0, demand = 5.0 }]\n",
+            )
+        ],
+        ["market.salvage_bin[lo].block", "unknown block 'gpu'"],
+    ),
+    (
+        "salvage_min_good_too_high",
+        [
+            (
+                "volume = 100000\n",
+                'volume = 100000\nsalvage_bin = [{ name = "lo", block = "compute", '
+                "min_good = 2, unit_price = 10.0, demand = 5.0 }]\n",
+            )
+        ],
+        ["market.salvage_bin[lo].min_good", "must be below the block's count"],
+    ),
+    (
+        "target_without_curve",
+        [
+            (
+                'name = "split"\npackaging = "multi"\n',
+                'name = "split"\npackaging = "multi"\ndefect_targets = { fast = "0.05 /cm^2" }\n',
+            )
+        ],
+        ["design[split].defect_targets.fast", "is not a target process 'fast' offers"],
+    ),
+    (
+        "margin_lists_differ",
+        [
+            (
+                "fault_coverage = 0.99\n",
+                "fault_coverage = 0.99\nmargin = { sigma = [3.0, 4.0], area_overhead = [0.0] }\n",
+            )
+        ],
+        ["process[fast].margin", "same number of entries"],
+    ),
+    (
+        "curve_floor_above_base",
+        [
+            (
+                "fault_coverage = 0.99\n",
+                'fault_coverage = 0.99\ndefect_reduction = { form = "log_ratio", floor = "0.5 /cm^2" }\n',
+            )
+        ],
+        ["process[fast]", "floor must be above 0 and at most defect_density"],
+    ),
+]
+
+
+@pytest.mark.parametrize("case_id, edits, words", TARGET_CASES, ids=[c[0] for c in TARGET_CASES])
+def test_bad_yield_target_input(write_problem, case_id, edits, words):
+    path = write_problem(TINY_PROBLEM, *edits)
+    result = runner.invoke(app, ["check", str(path)])
+    assert result.exit_code == 2, result.output
+    message = result.stderr.strip()
+    assert "\n" not in message
+    for word in words:
+        assert word in message, message
