@@ -537,7 +537,7 @@ def validate_references(problem: Problem, source: str) -> None:
     for block in problem.block:
         if block.repair is not None and block.kind != "memory":
             fail(f"block[{block.name}].repair", "array repair applies to memory blocks only")
-    for j, sbin in enumerate(problem.market.salvage_bin):
+    for sbin in problem.market.salvage_bin:
         where = f"market.salvage_bin[{sbin.name}]"
         if sbin.block not in blocks:
             fail(f"{where}.block", f"unknown block '{sbin.block}'; use one of {sorted(blocks)}")

@@ -146,7 +146,8 @@ TARGET_CASES = [
         [
             (
                 "fault_coverage = 0.99\n",
-                'fault_coverage = 0.99\ndefect_reduction = { form = "log_ratio", floor = "0.5 /cm^2" }\n',
+                'fault_coverage = 0.99\ndefect_reduction = '
+                '{ form = "log_ratio", floor = "0.5 /cm^2" }\n',
             )
         ],
         ["process[fast]", "floor must be above 0 and at most defect_density"],
