@@ -63,14 +63,6 @@ class DieBatch:
     def __len__(self) -> int:
         return int(self.process.shape[0])
 
-    def take(self, index: np.ndarray) -> DieBatch:
-        return DieBatch(
-            **{
-                name: (value[index] if isinstance(value, np.ndarray) else value)
-                for name, value in vars(self).items()
-            }
-        )
-
     def column(self, name: str, default: float) -> np.ndarray:
         value = getattr(self, name)
         return np.full(len(self), default, dtype=float) if value is None else value
@@ -136,13 +128,8 @@ class Evaluator:
         ports = (cut > 1e-12).sum(axis=1)
         return cut.sum(axis=1) / density + ports * packaging.port_area_mm2
 
-    def price_dies(self, batch: DieBatch, optimistic: bool = False) -> DiePrices:
-        """Price every die of ``batch`` exactly (see module docstring).
-
-        With ``optimistic`` the exact gross-die count is replaced by a cheap upper bound
-        (usable wafer area / site area), so every cost is a lower bound of the exact one;
-        the solver screens candidates with it and prices only survivors exactly.
-        """
+    def price_dies(self, batch: DieBatch) -> DiePrices:
+        """Price every die of ``batch`` exactly (see module docstring)."""
         n = len(batch)
         blocks = self.blocks
         bins = self.problem.market.salvage_bin
@@ -172,11 +159,7 @@ class Evaluator:
             interface = batch.interface_area_mm2[rows]
             area = self._die_area(p_index, q, s, r, growth, interface)
             width, height = die_shape_mm(area, process)
-            gross = (
-                gross_dies_upper_bound(process, width, height)
-                if optimistic
-                else gross_dies(process, width, height)
-            )
+            gross = gross_dies(process, width, height)
             fits = _fits_field(width, height, process)
             # critical area of one unit of each block on each die [cm^2]
             unit_crit = (
@@ -581,20 +564,6 @@ def _count_pool_map():
 def _per_die(wafer_cost: float, gross: np.ndarray) -> np.ndarray:
     """Wafer cost shared by the gross dies; infinite where no die fits."""
     return np.divide(wafer_cost, gross, out=np.full(gross.shape, np.inf), where=gross > 0)
-
-
-def gross_dies_upper_bound(
-    process: Process, width_mm: np.ndarray, height_mm: np.ndarray
-) -> np.ndarray:
-    """A cheap upper bound on gross dies: disjoint sites cannot cover more than the
-    usable circle, so floor(pi R^2 / site area) bounds the exact count (float array)."""
-    if process.die_count != "exact":
-        return gross_dies(process, width_mm, height_mm)
-    radius = wafer.usable_radius_mm(process.wafer_diameter_mm, process.edge_exclusion_mm)
-    site = (np.asarray(width_mm, dtype=float) + process.scribe_width_mm) * (
-        np.asarray(height_mm, dtype=float) + process.scribe_width_mm
-    )
-    return np.floor(np.pi * radius**2 / site)
 
 
 def gross_dies(process: Process, width_mm: np.ndarray, height_mm: np.ndarray) -> np.ndarray:

@@ -11,7 +11,7 @@ area) are dropped: swapping a dominated die for its dominator never makes a desi
 from __future__ import annotations
 
 import itertools
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -32,8 +32,6 @@ class CandidateSet:
     max_copies: np.ndarray  # (C,) most copies of this die one product can hold
     level: np.ndarray  # (C,) index into its process's defect_targets()
     critical_option: np.ndarray  # (C,) index into the critical-area options
-    batch: DieBatch  # the dies themselves, to price them again
-    optimistic: bool = False  # prices are lower bounds (gross dies bounded above)
 
     def __len__(self) -> int:
         return int(self.process.shape[0])
@@ -199,15 +197,12 @@ def build_candidates(
     prune: bool = True,
     depth: int = 1,
     requirements: Requirements | None = None,
-    optimistic: bool = False,
 ) -> CandidateSet:
     """Price every admissible candidate die for one packaging option.
 
     With ``prune`` (the solver's default) variants of a content dominated by ``depth``
     others (the number of ranked designs wanted) are dropped; the exhaustive reference
-    keeps them all. With ``optimistic`` dies are priced with an upper bound on gross dies
-    (lower-bound costs, see Evaluator.price_dies) and nothing is pruned, since dominance
-    needs exact prices.
+    keeps them all.
     """
     problem = evaluator.problem
     packaging = problem.packaging[packaging_index]
@@ -226,10 +221,15 @@ def build_candidates(
     )
     if not fits.all():
         keep = np.flatnonzero(fits)
-        batch = batch.take(keep)
+        batch = DieBatch(
+            **{
+                name: (value[keep] if isinstance(value, np.ndarray) else value)
+                for name, value in vars(batch).items()
+            }
+        )
         extra = {name: value[keep] for name, value in extra.items()}
     process, inst, spare, repair = batch.process, batch.instances, batch.spares, batch.repairs
-    prices = evaluator.price_dies(batch, optimistic=optimistic)
+    prices = evaluator.price_dies(batch)
     ok = (
         prices.fits_reticle
         & (prices.gross_dies_per_wafer > 0)
@@ -261,7 +261,7 @@ def build_candidates(
             prices.area_mm2[idx],
         ]
     )
-    if prune and not optimistic:
+    if prune:
         idx = idx[pareto_keep(group.ravel(), metrics, depth)]
     inst_k = inst[idx]
     with np.errstate(divide="ignore"):
@@ -280,32 +280,4 @@ def build_candidates(
         max_copies=max_copies,
         level=extra["level"][idx],
         critical_option=extra["critical"][idx],
-        batch=batch.take(idx),
-        optimistic=optimistic,
     )
-
-
-class ExactPrices:
-    """Exact prices of an optimistic candidate set, computed on demand and kept.
-
-    ``cset`` shares the optimistic set's candidates and indices; its prices become exact
-    for every candidate passed to :meth:`ensure` (others keep their lower bounds).
-    """
-
-    def __init__(self, evaluator: Evaluator, optimistic: CandidateSet):
-        self.evaluator = evaluator
-        self.known = np.zeros(len(optimistic), dtype=bool)
-        prices = DiePrices(
-            **{k: np.array(getattr(optimistic.prices, k)) for k in DiePrices.__dataclass_fields__}
-        )
-        self.cset = replace(optimistic, prices=prices, optimistic=False)
-
-    def ensure(self, index) -> None:
-        index = np.unique(np.asarray(index, dtype=np.int64))
-        index = index[~self.known[index]]
-        if index.size == 0:
-            return
-        exact = self.evaluator.price_dies(self.cset.batch.take(index))
-        for name in DiePrices.__dataclass_fields__:
-            getattr(self.cset.prices, name)[index] = getattr(exact, name)
-        self.known[index] = True

@@ -149,23 +149,14 @@ class Columns:
         return bound
 
 
-def build_columns(
-    evaluator: Evaluator, candidates: CandidateSet, n_dies: int, subset: np.ndarray | None = None
-) -> Columns | None:
-    """Arrays of the lower-bounding program for one packaging option and die count.
-
-    ``subset`` restricts the program to those candidate indices.
-    """
+def build_columns(evaluator: Evaluator, candidates: CandidateSet, n_dies: int) -> Columns | None:
+    """Arrays of the lower-bounding program for one packaging option and die count."""
     problem = evaluator.problem
     g = candidates.packaging_index
     packaging = problem.packaging[g]
     prices = candidates.prices
     count = evaluator.blocks.count
-    usable = (candidates.max_copies >= 1) & np.isfinite(prices.cost_per_passed_die)
-    if subset is not None:
-        mask = np.zeros(len(candidates), dtype=bool)
-        mask[subset] = True
-        usable &= mask
+    usable = candidates.max_copies >= 1
     if n_dies == 1:
         usable &= np.all(candidates.instances == count[None, :], axis=1)
     cand = np.flatnonzero(usable)

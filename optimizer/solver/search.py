@@ -17,12 +17,7 @@ import numpy as np
 
 from optimizer.evaluator import Evaluator
 from optimizer.problem import Requirements
-from optimizer.solver.candidates import (
-    CandidateSet,
-    ExactPrices,
-    build_candidates,
-    enumerate_contents,
-)
+from optimizer.solver.candidates import CandidateSet, build_candidates, enumerate_contents
 from optimizer.solver.milp import (
     Columns,
     RelaxedBound,
@@ -93,23 +88,16 @@ def milp_search(
     )
     cached = candidate_cache.get(key) if candidate_cache is not None else None
     contents = enumerate_contents(evaluator) if cached is None else None
-    # Candidates are priced optimistically (gross dies bounded above, so every cost is a
-    # lower bound): bounds and screens stay valid, and only the candidates that survive
-    # the screens, or appear in a design, get their exact gross-die count and price.
-    exact_of: dict[int, ExactPrices] = {}
     candidates: dict[int, CandidateSet] = {}
     programs: list[tuple[float, Columns]] = []
     for g, packaging in enumerate(problem.packaging):
-        if cached is not None:
-            exact_of[g] = cached[g]
-        else:
-            optimistic = build_candidates(
-                evaluator, g, contents, depth=top, requirements=need, optimistic=True
-            )
-            exact_of[g] = ExactPrices(evaluator, optimistic)
-        cset = exact_of[g].cset
+        cset = (
+            cached[g]
+            if cached is not None
+            else build_candidates(evaluator, g, contents, depth=top, requirements=need)
+        )
         candidates[g] = cset
-        log.append(f"packaging {packaging.name}: {len(cset)} candidate dies")
+        log.append(f"packaging {packaging.name}: {len(cset)} candidate dies after pruning")
         n_max = min(packaging.max_dies, problem.constraints.max_dies)
         # one-die products are all priced exactly below (salvage revenue included), so
         # the programs start at two dies
@@ -119,7 +107,7 @@ def milp_search(
                 programs.append((columns.quick_bound(), columns))
     programs.sort(key=lambda item: item[0])
     if candidate_cache is not None:
-        candidate_cache[key] = exact_of
+        candidate_cache[key] = candidates
     log.append(
         f"{len(programs)} (packaging, die count) programs in {time.perf_counter() - start:.2f} s"
     )
@@ -130,7 +118,6 @@ def milp_search(
         sel = sub.current
         if sel is None or sel in exact:
             return
-        exact_of[sel.packaging_index].ensure([c for c, _ in sel.dies])
         prices = price_selections(evaluator, candidates[sel.packaging_index], [sel])
         # total cost = revenue - profit: volume x cost + one-time costs - salvage revenue;
         # infinite for an invalid product (carrier too large, clashing targets)
@@ -152,7 +139,6 @@ def milp_search(
     # one-die designs need no program: price them all at once for a first threshold
     for g, cset in candidates.items():
         whole = np.flatnonzero(np.all(cset.instances == evaluator.blocks.count[None, :], axis=1))
-        exact_of[g].ensure(whole)
         if whole.size:
             sels = [Selection.of(g, [(int(c), 1)]) for c in whole]
             prices = price_selections(evaluator, cset, sels)
@@ -198,20 +184,9 @@ def milp_search(
                 cut_current(scout)
         limit = threshold() * (1 + REL_TOL) + 1e-6
         keep = np.flatnonzero(~(bound.at_zero & (value + bound.reduced_cost > limit)))
-        # the kept candidates are priced exactly and the program rebuilt on exact prices
-        kept = np.unique(columns.col_c[keep])
-        exact_of[columns.packaging_index].ensure(kept)
-        exact_columns = build_columns(
-            evaluator, candidates[columns.packaging_index], columns.n_dies, subset=kept
-        )
-        if exact_columns is None:
-            continue
-        sub = build_subproblem(exact_columns, np.arange(exact_columns.n_cols))
+        sub = build_subproblem(columns, keep)
         sub.bound = value
-        sub.log.append(
-            f"relaxation {value:.8g}; {keep.size} of {columns.n_cols} columns kept, "
-            f"{kept.size} candidates priced exactly"
-        )
+        sub.log.append(f"relaxation {value:.8g}; {keep.size} of {columns.n_cols} columns kept")
         subs.append(sub)
         solve_round(sub, remaining())
         price(sub)
@@ -267,7 +242,6 @@ def milp_search(
         "cuts": sum(s.cuts for s in subs),
         "designs_priced": len(exact),
         "candidate_dies": int(sum(len(c) for c in candidates.values())),
-        "candidate_dies_priced_exactly": int(sum(e.known.sum() for e in exact_of.values())),
         "milp_seconds": float(sum(s.seconds for s in subs)),
     }
     return SearchOutcome(
