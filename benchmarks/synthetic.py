@@ -12,6 +12,12 @@ from optimizer.problem import Problem, parse_problem
 
 
 def synthetic_problem(n_blocks: int, seed: int = 0, max_dies: int = 8) -> Problem:
+    """The validated problem of :func:`synthetic_data`."""
+    return parse_problem(synthetic_data(n_blocks, seed, max_dies))
+
+
+def synthetic_data(n_blocks: int, seed: int = 0, max_dies: int = 8) -> dict:
+    """The problem as a decoded TOML document (what sweeps and studies start from)."""
     rng = np.random.default_rng(seed)
     kinds = ["logic", "memory", "analog", "io"]
     blocks = [
@@ -24,7 +30,10 @@ def synthetic_problem(n_blocks: int, seed: int = 0, max_dies: int = 8) -> Proble
         for i in range(n_blocks)
     ]
     links = [
-        {"blocks": [f"blk{i:02d}", f"blk{i + 1:02d}"], "bandwidth": f"{rng.uniform(50, 400):.0f} GB/s"}
+        {
+            "blocks": [f"blk{i:02d}", f"blk{i + 1:02d}"],
+            "bandwidth": f"{rng.uniform(50, 400):.0f} GB/s",
+        }
         for i in range(n_blocks - 1)
     ]
     processes = [
@@ -58,15 +67,13 @@ def synthetic_problem(n_blocks: int, seed: int = 0, max_dies: int = 8) -> Proble
          "interposer_extra_area": "50 mm^2", "interposer_max_area": "3000 mm^2",
          "interposer_defect_sensitivity": 0.1},
     ]
-    return parse_problem(
-        {
-            "title": f"synthetic {n_blocks}-block problem (invented)",
-            "market": {"unit_price": 1500.0, "volume": 3e5},
-            "constraints": {"max_dies": max_dies, "max_die_area": "858 mm^2"},
-            "process": processes,
-            "packaging": packagings,
-            "design_cost": {"per_die_design": 5e6, "per_mm2": 4e4},
-            "block": blocks,
-            "link": links,
-        }
-    )
+    return {
+        "title": f"synthetic {n_blocks}-block problem (invented)",
+        "market": {"unit_price": 1500.0, "volume": 3e5},
+        "constraints": {"max_dies": max_dies, "max_die_area": "858 mm^2"},
+        "process": processes,
+        "packaging": packagings,
+        "design_cost": {"per_die_design": 5e6, "per_mm2": 4e4},
+        "block": blocks,
+        "link": links,
+    }

@@ -14,12 +14,11 @@ from typing import Annotated
 import typer
 from rich.console import Console
 
-from optimizer import __version__
+from optimizer import __version__, report
 from optimizer.designs import evaluate_design
-from optimizer.outputs import copy_writer, text_writer, write_run_folder
 from optimizer.evaluator import Evaluator
+from optimizer.outputs import copy_writer, text_writer, write_run_folder
 from optimizer.problem import ProblemError, load_problem
-from optimizer import report
 
 app = typer.Typer(
     help="Plan dies, processes, packaging and yield targets for the most profit. "
@@ -288,3 +287,5 @@ def profit_curve_command(
     console.print(f"cost per good unit rises without bound as the target approaches 100%: {shape}")
     console.print(f"wrote {folder}")
     console.print(report.CAUTION, style="dim")
+
+from optimizer import cli_explore  # noqa: F401,E402  (registers exploration commands)

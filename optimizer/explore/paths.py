@@ -28,10 +28,12 @@ from __future__ import annotations
 
 import copy
 import math
+import tomllib
 import types
 import typing
 from collections.abc import Sequence
 from dataclasses import dataclass
+from pathlib import Path
 
 from pydantic import BaseModel
 
@@ -112,6 +114,9 @@ class FieldPath:
                 raise PathError(f"takes whole numbers only (got {value:g}); use an integer")
             return int(whole)
         if self.unit is not None:
+            # the schema leaves some quantities unchecked; none of them can be negative
+            if value < 0:
+                raise PathError(f"a {self.unit.name} cannot be negative (got {value:g})")
             return f"{value!r} {self.unit_text}"
         return value
 
@@ -151,7 +156,11 @@ def _field(model: type[BaseModel], key: str, where: str) -> tuple[str, object]:
     for name, info in fields.items():
         if key in (info.alias, name):
             return name, info
-    known = sorted(info.alias or name for name, info in fields.items() if _leads_to_number(info))
+    known = sorted(
+        info.alias or name
+        for name, info in fields.items()
+        if _leads_to_number(info) and (info.alias or name) not in _CLOSED_SECTIONS
+    )
     raise PathError(f"'{key}' is not a field of {where}; use one of {known}")
 
 
@@ -403,3 +412,37 @@ def check_uncertain(problem: Problem, source: str) -> list[FieldPath]:
         seen[path.text] = i
         paths.append(path)
     return paths
+
+
+# ---------------------------------------------------------------- a loaded study
+@dataclass(frozen=True)
+class Study:
+    """A problem file as decoded TOML and as a validated problem, for exploration."""
+
+    source: str
+    data: dict
+    problem: Problem
+    uncertain_paths: tuple[FieldPath, ...]
+
+
+def study_from_data(data: dict, source: str = "<problem>") -> Study:
+    """Validate decoded TOML (and its [[uncertain]] paths) into a :class:`Study`."""
+    problem = parse_problem(data, source)
+    return Study(source, data, problem, tuple(check_uncertain(problem, source)))
+
+
+def load_study(path: str | Path) -> Study:
+    """Read a problem file for exploration (raises ProblemError with file, field, fix)."""
+    path = Path(path)
+    source = str(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ProblemError(source, "", "file not found; check the path") from None
+    except OSError as exc:
+        raise ProblemError(source, "", f"cannot read the file ({exc.strerror})") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ProblemError(source, "", f"not valid TOML ({exc}); fix the syntax there") from None
+    return study_from_data(data, source)

@@ -1,0 +1,576 @@
+"""Exploration commands of the `dieplan` command line: compare, sweep, sensitivity, uncertainty.
+
+Registered on the main app when ``optimizer.cli`` imports this module. Each command
+checks its options, runs the library (``optimizer/explore/``), prints a short summary and
+writes one run folder atomically: the problem file(s), the options as JSON, CSV tables
+and PNG + SVG figures. Bad input is one line on stderr and exit code 2.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Annotated
+
+import numpy as np
+import pandas as pd
+import typer
+from rich.console import Console
+from rich.markup import escape
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+from rich.table import Table
+
+from optimizer.cli import ProblemPath, app, fail
+from optimizer.outputs import Writer, copy_writer, text_writer, write_run_folder
+from optimizer.problem import ProblemError
+from optimizer.report import CAUTION, money
+
+ResultsDir = Annotated[Path, typer.Option("--results", help="Folder for the run folder.")]
+AsJson = Annotated[bool, typer.Option("--json", help="Print one JSON object.")]
+Write = Annotated[bool, typer.Option("--write/--no-write", help="Write a run folder.")]
+TimeLimit = Annotated[
+    float | None,
+    typer.Option("--time-limit", min=0.0, help="Seconds per solve; best found and its gap."),
+]
+Workers = Annotated[
+    int | None,
+    typer.Option("--workers", help="Local worker processes (default: one per CPU core)."),
+]
+Scheduler = Annotated[
+    str | None,
+    typer.Option("--scheduler", help="Address of an existing Dask scheduler, tcp://HOST:PORT."),
+]
+
+
+# ---------------------------------------------------------------- shared helpers
+def _console() -> Console:
+    console = Console(highlight=False)
+    if not console.is_terminal:
+        console = Console(highlight=False, width=120)
+    return console
+
+
+@contextmanager
+def _progress(console: Console, enabled: bool) -> Iterator[tuple[Callable, Callable]]:
+    """(stage, advance) callbacks driving a rich progress bar on a terminal only."""
+    if not (enabled and console.is_terminal):
+        yield (lambda name, total: None), (lambda done, total: None)
+        return
+    columns = (
+        TextColumn("{task.description}"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TimeElapsedColumn(),
+    )
+    with Progress(*columns, console=console, transient=False) as bar:
+        current: dict = {}
+
+        def stage(name: str, total: int) -> None:
+            current["task"] = bar.add_task(name, total=total)
+
+        def advance(done: int, total: int) -> None:
+            if "task" not in current:
+                stage("working", total)
+            bar.update(current["task"], completed=done, total=total)
+
+        yield stage, advance
+
+
+def _runner(workers: int | None, scheduler: str | None):
+    from optimizer.explore.parallel import Runner
+
+    if workers is None:
+        workers = os.cpu_count() or 1
+    return Runner(workers=workers, scheduler=scheduler)
+
+
+def _clean(value: object) -> object:
+    """JSON-safe values: NaN and infinities become null; numpy scalars plain numbers."""
+    if isinstance(value, dict):
+        return {str(k): _clean(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_clean(v) for v in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def _records(frame: pd.DataFrame) -> list[dict]:
+    return _clean(frame.to_dict(orient="records"))
+
+
+def _json_writer(payload: object) -> Writer:
+    return text_writer(json.dumps(_clean(payload), indent=2) + "\n")
+
+
+def _csv_writer(frame: pd.DataFrame) -> Writer:
+    return text_writer(frame.to_csv(index=False))
+
+
+def _figure_writers(stem: str, figure) -> dict[str, Writer]:
+    return {
+        f"{stem}.png": lambda path: figure.savefig(path, dpi=130),
+        # no date in the SVG, so identical runs give identical files
+        f"{stem}.svg": lambda path: figure.savefig(path, metadata={"Date": None}),
+    }
+
+
+def _finish(
+    console: Console,
+    as_json: bool,
+    payload: dict,
+    folder: Path | None,
+    show: Callable[[], None],
+) -> None:
+    if as_json:
+        if folder is not None:
+            payload["run_folder"] = str(folder)
+        typer.echo(json.dumps(_clean(payload), indent=2))
+        return
+    show()
+    if folder is not None:
+        console.print(f"wrote {folder}")
+    console.print(CAUTION, style="dim")
+
+
+def _design_rows(designs: dict) -> dict:
+    return {
+        key: {
+            "kind": d.kind,
+            "summary": d.summary,
+            "packaging": d.packaging,
+            "dies": [
+                {
+                    "name": s.name,
+                    "process": s.process,
+                    "copies": s.copies,
+                    "blocks": s.blocks,
+                    "spares": s.spares,
+                    "repair": s.repair,
+                    "defect_density_per_cm2": s.defect_density_per_cm2,
+                    "sigma_margin": s.sigma_margin,
+                    "critical_area_option": s.critical_area_option,
+                }
+                for s in d.specs
+            ],
+        }
+        for key, d in designs.items()
+    }
+
+
+# ---------------------------------------------------------------- compare
+@app.command()
+def compare(
+    problem_paths: Annotated[
+        list[Path], typer.Argument(help="Problem file(s) (TOML).", show_default=False)
+    ],
+    processes: Annotated[
+        list[str] | None,
+        typer.Option(
+            "--processes",
+            "-p",
+            help="A process option set, names joined by commas (repeat for more sets). "
+            "Default: each process alone, then all together.",
+        ),
+    ] = None,
+    time_limit: TimeLimit = None,
+    as_json: AsJson = False,
+    results_dir: ResultsDir = Path("results"),
+    write: Write = True,
+) -> None:
+    """Best design per process option set (one file) or per problem file, side by side."""
+    from optimizer.explore import compare as comparing
+    from optimizer.explore.paths import load_study
+    from optimizer.explore.plots import comparison_figure
+
+    console = _console()
+    try:
+        if len(problem_paths) > 1 and processes:
+            raise ProblemError(
+                "--processes",
+                "",
+                "applies to one problem file; give one file with --processes, or several "
+                "files without it",
+            )
+        studies = [load_study(p) for p in problem_paths]
+        if len(studies) > 1:
+            options = comparing.file_options(studies)
+        else:
+            sets = [s.split(",") for s in processes] if processes else None
+            options = comparing.process_options(studies[0], sets)
+            if not options:
+                raise ProblemError(
+                    str(problem_paths[0]), "process", "no process can be packaged on its own"
+                )
+        with _progress(console, not as_json) as (stage, advance):
+            stage("solving options", len(options))
+            result = comparing.compare(options, time_limit=time_limit, progress=advance)
+    except ProblemError as error:
+        fail(error)
+    currency = studies[0].problem.market.currency
+    table = result.table
+    payload = {
+        "command": "compare",
+        "options": {
+            "problems": [str(p) for p in problem_paths],
+            "processes": processes,
+            "time_limit": time_limit,
+        },
+        "comparison": _records(table),
+        "notes": {k: list(v) for k, v in result.notes.items()},
+    }
+    folder = None
+    if write:
+        files: dict[str, Writer] = {
+            "comparison.csv": _csv_writer(table),
+            "comparison.json": _json_writer(payload),
+            "options.json": _json_writer(payload["options"]),
+            **_figure_writers("cost_by_component", comparison_figure(result, currency)),
+        }
+        files.update(_problem_copies(problem_paths))
+        folder = write_run_folder(results_dir, "compare", problem_paths[0].stem, files)
+
+    def show() -> None:
+        view = Table(title=f"Winners side by side ({currency})", title_justify="left")
+        for col in ("option", "design kind", "cost/good unit", "profit", "vs best",
+                    "die yields", "package yield", "NRE"):
+            view.add_column(col, justify="left" if col in ("option", "design kind",
+                                                            "die yields") else "right")
+        for row in table.itertuples():
+            if not math.isfinite(row.profit):
+                view.add_row(escape(str(row.option)), escape(row.design_kind),
+                             *["-"] * 6)
+                continue
+            view.add_row(
+                escape(str(row.option)), escape(row.design_kind),
+                f"{row.cost_per_good_unit:,.2f}", money(row.profit), money(row.profit_vs_best),
+                escape(row.die_yields),
+                f"{100 * row.package_yield:.2f}%", money(row.nre),
+            )
+        console.print(view)
+        for row in table.itertuples():
+            if isinstance(row.differences_explained, str):
+                console.print(f"[bold]{escape(str(row.option))}[/bold]: "
+                              f"{escape(row.differences_explained)}")
+            if row.notes:
+                console.print(f"  note: {escape(row.notes)}", style="dim")
+
+    _finish(console, as_json, payload, folder, show)
+
+
+def _problem_copies(paths: list[Path]) -> dict[str, Writer]:
+    if len(paths) == 1:
+        return {"problem.toml": copy_writer(paths[0])}
+    return {f"problem-{i + 1}-{p.stem}.toml": copy_writer(p) for i, p in enumerate(paths)}
+
+
+# ---------------------------------------------------------------- sweep
+@app.command()
+def sweep(
+    problem_path: ProblemPath,
+    vary: Annotated[
+        tuple[str, str, str],
+        typer.Option(
+            "--vary",
+            metavar="PATH LOW HIGH",
+            help="Input to sweep and its range, e.g. market.volume 1e5 1e7 (numbers in the "
+            "field's base unit, or quantities like '0.05 /cm^2').",
+            show_default=False,
+        ),
+    ],
+    steps: Annotated[int, typer.Option("--steps", help="Grid points on --vary.")] = 21,
+    log: Annotated[bool, typer.Option("--log", help="Geometric steps on --vary.")] = False,
+    vary2: Annotated[
+        tuple[str, str, str] | None,
+        typer.Option("--vary2", metavar="PATH LOW HIGH", help="A second input (2-D sweep)."),
+    ] = None,
+    steps2: Annotated[int, typer.Option("--steps2", help="Grid points on --vary2.")] = 11,
+    log2: Annotated[bool, typer.Option("--log2", help="Geometric steps on --vary2.")] = False,
+    refine: Annotated[
+        bool, typer.Option("--refine/--no-refine", help="Locate crossovers by root finding.")
+    ] = True,
+    every_point: Annotated[
+        bool,
+        typer.Option(
+            "--every-point",
+            help="Solve at every grid point even for a 1-D market sweep, which is otherwise "
+            "exact from a few solves.",
+        ),
+    ] = False,
+    workers: Workers = None,
+    scheduler: Scheduler = None,
+    time_limit: TimeLimit = None,
+    as_json: AsJson = False,
+    results_dir: ResultsDir = Path("results"),
+    write: Write = True,
+) -> None:
+    """Solve over a grid of one or two inputs; report where the winning design changes."""
+    from optimizer.explore.paths import load_study
+    from optimizer.explore.plots import sweep_figure
+    from optimizer.explore.sweep import make_axis, run_sweep
+
+    console = _console()
+    try:
+        axes = [make_axis(vary[0], vary[1], vary[2], steps, log, "--vary", "--steps")]
+        if vary2 is not None:
+            axes.append(make_axis(vary2[0], vary2[1], vary2[2], steps2, log2, "--vary2",
+                                  "--steps2"))
+        study = load_study(problem_path)
+        runner = _runner(workers, scheduler)
+        with _progress(console, not as_json) as (stage, advance):
+            result = run_sweep(study, axes, runner=runner, time_limit=time_limit,
+                               refine=refine, progress=advance, stage=stage,
+                               every_point=every_point)
+    except ProblemError as error:
+        fail(error)
+    currency = study.problem.market.currency
+    options = {
+        "problem": str(problem_path),
+        "axes": [
+            {"path": a.path.text, "unit": a.path.unit_text, "low": a.low, "high": a.high,
+             "steps": a.steps, "log": a.log}
+            for a in result.axes
+        ],
+        "refine": refine,
+        "every_point": every_point,
+        "strategy": result.strategy,
+        "solves": result.solves,
+        "workers": runner.workers,
+        "scheduler": scheduler,
+        "time_limit": time_limit,
+        "shared_candidates": result.shared_candidates,
+    }
+    payload = {
+        "command": "sweep",
+        "options": options,
+        "points": _records(result.points),
+        "crossovers": _records(result.crossovers),
+        "designs": _design_rows(result.designs),
+    }
+    folder = None
+    if write:
+        stem = "profit" if len(result.axes) == 1 else "winner_map"
+        files: dict[str, Writer] = {
+            "points.csv": _csv_writer(result.points),
+            "crossovers.csv": _csv_writer(result.crossovers),
+            "designs.json": _json_writer(payload["designs"]),
+            "options.json": _json_writer(options),
+            **_figure_writers(stem, sweep_figure(result, currency)),
+            "problem.toml": copy_writer(problem_path),
+        }
+        if result.curves is not None:
+            files["curves.csv"] = _csv_writer(result.curves)
+        folder = write_run_folder(results_dir, "sweep", problem_path.stem, files)
+
+    def show() -> None:
+        axis_names = " x ".join(a.path.label for a in result.axes)
+        how = (
+            f"exact from {result.solves} solves on the upper envelope of profit lines"
+            if result.strategy == "envelope"
+            else f"{result.solves} solves"
+            + (", candidate dies shared" if result.shared_candidates else "")
+        )
+        console.print(escape(
+            f"{len(result.points)} scenarios over {axis_names} on {runner.description} "
+            f"({how})"
+        ))
+        kinds = Table(title="Winning designs", title_justify="left")
+        for col in ("id", "design kind", "wins", "design"):
+            kinds.add_column(col, justify="right" if col == "wins" else "left")
+        wins = result.points["design_id"].value_counts()
+        for key, design in result.designs.items():
+            kinds.add_row(key, escape(design.kind), str(int(wins.get(key, 0))),
+                          escape(design.summary))
+        console.print(kinds)
+        if result.crossovers.empty:
+            console.print("no crossover: one design kind wins over the whole range")
+            return
+        view = Table(title="Crossovers (winning kind changes)", title_justify="left")
+        for col in ("axis", "at", "from", "to", "crossing", "profit there", "how"):
+            view.add_column(col)
+        for row in result.crossovers.itertuples():
+            where = f"{row.crossing:.6g}" if math.isfinite(row.crossing) else (
+                f"{row.grid_low:.6g} .. {row.grid_high:.6g}")
+            view.add_row(escape(row.axis), escape(row.at), escape(row.kind_before),
+                         escape(row.kind_after), where,
+                         money(row.profit_at_crossing, currency)
+                         if math.isfinite(row.profit_at_crossing) else "-", row.method)
+        console.print(view)
+
+    _finish(console, as_json, payload, folder, show)
+
+
+# ---------------------------------------------------------------- sensitivity
+@app.command()
+def sensitivity(
+    problem_path: ProblemPath,
+    ranges: Annotated[
+        list[str] | None,
+        typer.Option(
+            "--range",
+            metavar="PATH=LOW:HIGH",
+            help="An extra input range, e.g. market.unit_price=1500:2300 or "
+            "'process.leading.defect_density=0.1 /cm^2:0.3 /cm^2' (repeatable).",
+        ),
+    ] = None,
+    time_limit: TimeLimit = None,
+    as_json: AsJson = False,
+    results_dir: ResultsDir = Path("results"),
+    write: Write = True,
+) -> None:
+    """Profit change of the winning design with each uncertain input at its low and high end."""
+    from optimizer.explore.paths import load_study
+    from optimizer.explore.plots import tornado_figure
+    from optimizer.explore.sensitivity import make_range, ranges_from_study, run_sensitivity
+
+    console = _console()
+    try:
+        extra = [_parse_range(text, make_range) for text in ranges or []]
+        study = load_study(problem_path)
+        all_ranges = ranges_from_study(study) + extra
+        with _progress(console, not as_json) as (stage, advance):
+            stage("re-pricing the winner", max(1, len(all_ranges)))
+            result = run_sensitivity(study, all_ranges, time_limit=time_limit,
+                                     progress=advance)
+    except ProblemError as error:
+        fail(error)
+    currency = study.problem.market.currency
+    options = {"problem": str(problem_path), "ranges": ranges or [], "time_limit": time_limit}
+    payload = {
+        "command": "sensitivity",
+        "options": options,
+        "winner": {"kind": result.design.kind, "design": result.design.summary,
+                   "profit": result.base_profit},
+        "sensitivity": _records(result.table),
+    }
+    folder = None
+    if write:
+        files: dict[str, Writer] = {
+            "sensitivity.csv": _csv_writer(result.table),
+            "winner.json": _json_writer(result.winner.to_dict()),
+            "options.json": _json_writer(options),
+            **_figure_writers("tornado", tornado_figure(result, currency)),
+            "problem.toml": copy_writer(problem_path),
+        }
+        folder = write_run_folder(results_dir, "sensitivity", problem_path.stem, files)
+
+    def show() -> None:
+        console.print(
+            escape(f"winner (held fixed): {result.design.kind}: {result.design.summary}")
+        )
+        console.print(f"profit at the file's values: {money(result.base_profit, currency)}")
+        view = Table(title="Profit change, largest swing first", title_justify="left")
+        for col in ("input", "range", "at low", "at high", "swing", "note"):
+            view.add_column(col, justify="left" if col in ("input", "note") else "right")
+        for row in result.table.itertuples():
+            unit = f" {row.unit}" if row.unit else ""
+            view.add_row(escape(row.input), escape(f"{row.low:.4g} .. {row.high:.4g}{unit}"),
+                         _signed(row.change_low), _signed(row.change_high),
+                         money(row.swing) if math.isfinite(row.swing) else "-", escape(row.note))
+        console.print(view)
+
+    _finish(console, as_json, payload, folder, show)
+
+
+def _signed(value: float) -> str:
+    if not math.isfinite(value):
+        return "-"
+    return ("+" if value >= 0 else "") + money(value)
+
+
+def _parse_range(text: str, make_range):
+    path, sep, span = text.partition("=")
+    low, sep2, high = span.partition(":")
+    if not (sep and sep2 and path.strip() and low.strip() and high.strip()):
+        raise ProblemError(
+            "--range", text, "write PATH=LOW:HIGH, e.g. market.unit_price=1500:2300"
+        )
+    return make_range(path.strip(), low.strip(), high.strip())
+
+
+# ---------------------------------------------------------------- uncertainty
+@app.command()
+def uncertainty(
+    problem_path: ProblemPath,
+    samples: Annotated[int, typer.Option("--samples", "-n", help="Monte Carlo samples.")] = 1000,
+    seed: Annotated[int, typer.Option("--seed", help="Random seed (same seed, same result).")] = 0,
+    top: Annotated[int, typer.Option("--top", "-k", min=1, help="Designs to compare.")] = 3,
+    workers: Workers = None,
+    scheduler: Scheduler = None,
+    time_limit: TimeLimit = None,
+    as_json: AsJson = False,
+    results_dir: ResultsDir = Path("results"),
+    write: Write = True,
+) -> None:
+    """Monte Carlo over the file's uncertain inputs: profit P10, P50, P90 of the top designs."""
+    from optimizer.explore.paths import load_study
+    from optimizer.explore.plots import uncertainty_figure
+    from optimizer.explore.uncertainty import run_uncertainty
+
+    console = _console()
+    try:
+        study = load_study(problem_path)
+        runner = _runner(workers, scheduler)
+        with _progress(console, not as_json) as (stage, advance):
+            result = run_uncertainty(study, samples=samples, seed=seed, top=top, runner=runner,
+                                     time_limit=time_limit, progress=advance, stage=stage)
+    except ProblemError as error:
+        fail(error)
+    currency = study.problem.market.currency
+    options = {
+        "problem": str(problem_path),
+        "samples": samples,
+        "seed": seed,
+        "top": top,
+        "workers": runner.workers,
+        "scheduler": scheduler,
+        "time_limit": time_limit,
+        "inputs": [entry.model_dump() for entry in study.problem.uncertain],
+    }
+    payload = {
+        "command": "uncertainty",
+        "options": options,
+        "summary": _records(result.summary),
+    }
+    folder = None
+    if write:
+        files: dict[str, Writer] = {
+            "summary.csv": _csv_writer(result.summary),
+            "samples.csv": _csv_writer(result.samples_frame()),
+            "designs.json": _json_writer(
+                _design_rows({f"rank{k + 1}": d for k, d in enumerate(result.designs)})
+            ),
+            "options.json": _json_writer(options),
+            **_figure_writers("profit_distribution", uncertainty_figure(result, currency)),
+            "problem.toml": copy_writer(problem_path),
+        }
+        folder = write_run_folder(results_dir, "uncertainty", problem_path.stem, files)
+
+    def show() -> None:
+        names = ", ".join(p.text for p in result.inputs)
+        console.print(
+            escape(f"{samples:,} samples (seed {seed}) of {names} on {runner.description}")
+        )
+        view = Table(title=f"Profit ({currency}) of the top designs", title_justify="left")
+        for col in ("rank", "design kind", "at file values", "P10", "P50", "P90",
+                    "P(most profitable)"):
+            view.add_column(col, justify="left" if col == "design kind" else "right")
+        for row in result.summary.itertuples():
+            view.add_row(str(row.rank), escape(row.design_kind), money(row.profit_at_file_values),
+                         money(row.p10), money(row.p50), money(row.p90),
+                         f"{100 * row.prob_best:.1f}%")
+        console.print(view)
+        for row in result.summary.itertuples():
+            console.print(escape(f"rank {row.rank}: {row.design}"), style="dim")
+        for row in result.summary.itertuples():
+            if row.unbuildable_samples:
+                console.print(f"rank {row.rank} cannot be built in {row.unbuildable_samples} "
+                              "samples (left out of its percentiles)", style="dim")
+
+    _finish(console, as_json, payload, folder, show)
