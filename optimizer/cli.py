@@ -62,8 +62,11 @@ def _console() -> Console:
 @app.command()
 def check(problem_path: ProblemPath) -> None:
     """Validate a problem file and show what was understood, in base units."""
+    from optimizer.explore.paths import check_uncertain
+
     try:
         problem = load_problem(problem_path)
+        check_uncertain(problem, str(problem_path))
         evaluator = Evaluator(problem)
         for design in problem.design:
             evaluate_design(evaluator, design, str(problem_path))

@@ -208,6 +208,20 @@ class Process(_Section):
     defect_reduction: DefectReduction | None = None
     margin: MarginCurve | None = None
 
+    @field_validator("wafer_diameter_mm", "reticle_width_mm", "reticle_height_mm", "wafer_cost")
+    @classmethod
+    def _positive(cls, value: float) -> float:
+        if not value > 0:
+            raise ValueError("must be positive")
+        return value
+
+    @field_validator("defect_density_per_cm2", "edge_exclusion_mm", "scribe_width_mm")
+    @classmethod
+    def _not_negative(cls, value: float) -> float:
+        if not value >= 0:
+            raise ValueError("must not be negative")
+        return value
+
     @model_validator(mode="after")
     def _model_parameters(self) -> Process:
         if self.yield_model == "negative_binomial" and self.clustering_alpha is None:

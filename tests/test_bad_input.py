@@ -146,7 +146,7 @@ TARGET_CASES = [
         [
             (
                 "fault_coverage = 0.99\n",
-                'fault_coverage = 0.99\ndefect_reduction = '
+                "fault_coverage = 0.99\ndefect_reduction = "
                 '{ form = "log_ratio", floor = "0.5 /cm^2" }\n',
             )
         ],
@@ -164,3 +164,12 @@ def test_bad_yield_target_input(write_problem, case_id, edits, words):
     assert "\n" not in message
     for word in words:
         assert word in message, message
+
+
+def test_negative_defect_density_rejected(write_problem):
+    path = write_problem(
+        TINY_PROBLEM, ('defect_density = "0.1 /cm^2"', 'defect_density = "-0.1 /cm^2"')
+    )
+    result = runner.invoke(app, ["check", str(path)])
+    assert result.exit_code == 2
+    assert "process[fast].defect_density: must not be negative" in result.stderr
