@@ -21,8 +21,7 @@ from optimizer.outputs import copy_writer, text_writer, write_run_folder
 from optimizer.problem import ProblemError, load_problem
 
 app = typer.Typer(
-    help="Plan dies, processes, packaging and yield targets for the most profit. "
-    + report.CAUTION,
+    help="Plan dies, processes, packaging and yield targets for the most profit. " + report.CAUTION,
     no_args_is_help=True,
     add_completion=False,
     context_settings={"help_option_names": ["-h", "--help"]},
@@ -106,10 +105,14 @@ def evaluate(
     except ProblemError as error:
         fail(error)
     if as_json:
-        payload = results[0].to_dict() if len(results) == 1 else {
-            "problem": problem.title,
-            "designs": [r.to_dict() for r in results],
-        }
+        payload = (
+            results[0].to_dict()
+            if len(results) == 1
+            else {
+                "problem": problem.title,
+                "designs": [r.to_dict() for r in results],
+            }
+        )
         typer.echo(json.dumps(payload, indent=2, allow_nan=True))
         return
     console = _console()
@@ -141,7 +144,8 @@ def solve(
         float | None, typer.Option("--require-die-yield", help="Mandate a minimum die yield (0-1).")
     ] = None,
     require_sigma: Annotated[
-        float | None, typer.Option("--require-sigma", help="Mandate a minimum design margin [sigma].")
+        float | None,
+        typer.Option("--require-sigma", help="Mandate a minimum design margin [sigma]."),
     ] = None,
     require_defect_level: Annotated[
         float | None,
@@ -158,18 +162,26 @@ def solve(
     from optimizer.targets import price_requirements
 
     if method not in METHODS:
-        fail(ProblemError(str(problem_path), "--method", f"unknown method '{method}'; use one of {list(METHODS)}"))
+        fail(
+            ProblemError(
+                str(problem_path),
+                "--method",
+                f"unknown method '{method}'; use one of {list(METHODS)}",
+            )
+        )
     mandate = None
     try:
         problem = load_problem(problem_path)
         mandate = _requirements(problem, require_die_yield, require_sigma, require_defect_level)
         if mandate is not None and mandate.any():
-            priced = price_requirements(problem, mandate, top=top, source=str(problem_path),
-                                        time_limit=time_limit)
+            priced = price_requirements(
+                problem, mandate, top=top, source=str(problem_path), time_limit=time_limit
+            )
             solution, free = priced.mandated, priced.free
         else:
-            solution = run_solver(problem, top=top, method=method, time_limit=time_limit,
-                                  source=str(problem_path))
+            solution = run_solver(
+                problem, top=top, method=method, time_limit=time_limit, source=str(problem_path)
+            )
             priced = free = None
     except ProblemError as error:
         fail(error)
@@ -209,14 +221,19 @@ def _requirements(problem, die_yield, sigma, defect_level):
     from optimizer.problem import Requirements
 
     base = problem.requirements.model_dump()
-    for key, value in (("min_die_yield", die_yield), ("min_sigma_margin", sigma),
-                       ("max_defect_level", defect_level)):
+    for key, value in (
+        ("min_die_yield", die_yield),
+        ("min_sigma_margin", sigma),
+        ("max_defect_level", defect_level),
+    ):
         if value is not None:
             base[key] = value
     try:
         merged = Requirements(**base)
     except Exception as exc:  # pydantic names the bad value
-        raise ProblemError("--require", "", f"invalid requirement ({exc.errors()[0]['msg']})") from None
+        raise ProblemError(
+            "--require", "", f"invalid requirement ({exc.errors()[0]['msg']})"
+        ) from None
     return merged if merged.any() else None
 
 
@@ -225,19 +242,21 @@ def _ranked_csv(solution) -> str:
 
     rows = []
     for rank, d in enumerate(solution.designs, start=1):
-        rows.append({
-            "rank": rank,
-            "design": report.short_design(d),
-            "packaging": d.packaging,
-            "n_dies": d.n_dies,
-            "cost_per_good_unit": d.cost_per_good_unit,
-            "manufacturing_cost_per_good_unit": d.manufacturing_cost_per_good_unit,
-            "package_yield": d.package_yield,
-            "nre": d.nre,
-            "profit": d.profit,
-            "margin": d.margin,
-            **{f"cost_{k}": v for k, v in d.breakdown.items()},
-        })
+        rows.append(
+            {
+                "rank": rank,
+                "design": report.short_design(d),
+                "packaging": d.packaging,
+                "n_dies": d.n_dies,
+                "cost_per_good_unit": d.cost_per_good_unit,
+                "manufacturing_cost_per_good_unit": d.manufacturing_cost_per_good_unit,
+                "package_yield": d.package_yield,
+                "nre": d.nre,
+                "profit": d.profit,
+                "margin": d.margin,
+                **{f"cost_{k}": v for k, v in d.breakdown.items()},
+            }
+        )
     return pd.DataFrame(rows).to_csv(index=False)
 
 
@@ -248,7 +267,9 @@ def profit_curve_command(
     require_die_yield: Annotated[
         float | None, typer.Option("--require-die-yield", help="Mark a mandated die yield.")
     ] = None,
-    results_dir: Annotated[Path, typer.Option("--results", help="Folder for the run folder.")] = Path("results"),
+    results_dir: Annotated[
+        Path, typer.Option("--results", help="Folder for the run folder.")
+    ] = Path("results"),
 ) -> None:
     """Profit and cost per good unit of the winning design against its yield target."""
     from optimizer.solver import solve as run_solver
@@ -260,7 +281,9 @@ def profit_curve_command(
         frame = profit_curve(problem, solution.best, points=points)
     except ProblemError as error:
         fail(error)
-    mandated = require_die_yield if require_die_yield is not None else problem.requirements.min_die_yield
+    mandated = (
+        require_die_yield if require_die_yield is not None else problem.requirements.min_die_yield
+    )
     figure = profit_curve_figure(frame, problem.market.currency, mandated)
     folder = write_run_folder(
         results_dir,
@@ -290,5 +313,6 @@ def profit_curve_command(
     console.print(f"cost per good unit rises without bound as the target approaches 100%: {shape}")
     console.print(f"wrote {folder}")
     console.print(report.CAUTION, style="dim")
+
 
 from optimizer import cli_explore  # noqa: F401,E402  (registers exploration commands)
