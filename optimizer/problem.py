@@ -669,6 +669,12 @@ def parse_problem(data: dict, source: str = "<problem>") -> Problem:
 
 def load_problem(path: str | Path) -> Problem:
     """Read and validate a problem file (raises ProblemError with file, field and fix)."""
+    data, source = read_problem_data(path)
+    return parse_problem(data, source)
+
+
+def read_problem_data(path: str | Path) -> tuple[dict, str]:
+    """Decode a problem file's TOML; the file's name is the source of later messages."""
     path = Path(path)
     source = str(path)
     try:
@@ -681,7 +687,7 @@ def load_problem(path: str | Path) -> Problem:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ProblemError(source, "", f"not valid TOML ({exc}); fix the syntax there") from None
-    return parse_problem(data, source)
+    return data, source
 
 
 # ---------------------------------------------------------------- uncertain inputs

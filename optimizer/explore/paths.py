@@ -28,7 +28,6 @@ from __future__ import annotations
 
 import copy
 import math
-import tomllib
 import types
 import typing
 from collections.abc import Sequence
@@ -37,7 +36,7 @@ from pathlib import Path
 
 from pydantic import BaseModel
 
-from optimizer.problem import Problem, ProblemError, parse_problem
+from optimizer.problem import Problem, ProblemError, parse_problem, read_problem_data
 from optimizer.units import (
     AREA,
     BANDWIDTH,
@@ -433,16 +432,5 @@ def study_from_data(data: dict, source: str = "<problem>") -> Study:
 
 def load_study(path: str | Path) -> Study:
     """Read a problem file for exploration (raises ProblemError with file, field, fix)."""
-    path = Path(path)
-    source = str(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise ProblemError(source, "", "file not found; check the path") from None
-    except OSError as exc:
-        raise ProblemError(source, "", f"cannot read the file ({exc.strerror})") from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ProblemError(source, "", f"not valid TOML ({exc}); fix the syntax there") from None
+    data, source = read_problem_data(path)
     return study_from_data(data, source)
