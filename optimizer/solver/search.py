@@ -268,7 +268,3 @@ def relative_gap(outcome: SearchOutcome, evaluator: Evaluator) -> float:
     best = outcome.ranked[0].profit
     bound = profit_bound(outcome, evaluator)
     return max(0.0, (bound - best) / max(abs(best), 1e-12))
-
-
-def selections_equal_cost(a: float, b: float) -> bool:
-    return bool(np.isclose(a, b, rtol=1e-9, atol=1e-6))
