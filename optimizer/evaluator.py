@@ -14,10 +14,6 @@ Everything the tool reports is computed here; the solver only decides what to pr
 
 from __future__ import annotations
 
-import atexit
-import multiprocessing
-import os
-from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -540,27 +536,6 @@ COST_COMPONENTS = (
 )
 
 
-_COUNT_POOL: ProcessPoolExecutor | None = None
-
-
-def _count_pool_map():
-    """A process-pool map for counting many new footprints, or None to count in-process.
-
-    DIEPLAN_COUNT_WORKERS sets the number of worker processes (1 disables the pool);
-    processes that may not have children (daemons, e.g. some cluster workers) count
-    in-process.
-    """
-    global _COUNT_POOL
-    workers = int(os.environ.get("DIEPLAN_COUNT_WORKERS", os.cpu_count() or 1))
-    if workers <= 1 or multiprocessing.current_process().daemon:
-        return None
-    if _COUNT_POOL is None:
-        context = multiprocessing.get_context("fork" if os.name == "posix" else "spawn")
-        _COUNT_POOL = ProcessPoolExecutor(max_workers=workers, mp_context=context)
-        atexit.register(_COUNT_POOL.shutdown)
-    return _COUNT_POOL.map
-
-
 def _per_die(wafer_cost: float, gross: np.ndarray) -> np.ndarray:
     """Wafer cost shared by the gross dies; infinite where no die fits."""
     return np.divide(wafer_cost, gross, out=np.full(gross.shape, np.inf), where=gross > 0)
@@ -572,9 +547,7 @@ def gross_dies(process: Process, width_mm: np.ndarray, height_mm: np.ndarray) ->
     site_w = np.asarray(width_mm, dtype=float) + process.scribe_width_mm
     site_h = np.asarray(height_mm, dtype=float) + process.scribe_width_mm
     if process.die_count == "exact":
-        return wafer.gross_dies_exact_many(
-            radius, site_w, site_h, map_chunks=_count_pool_map()
-        ).astype(float)
+        return wafer.gross_dies_exact_many(radius, site_w, site_h).astype(float)
     if process.die_count == "formula":
         return np.maximum(np.floor(wafer.gross_dies_classic(2 * radius, site_w * site_h)), 0.0)
     return np.pi * radius**2 / (site_w * site_h)

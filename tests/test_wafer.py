@@ -279,3 +279,48 @@ def test_quarter_turn_symmetry(width, height):
     # Limiting case derived by hand: a quarter turn maps the circle onto itself and swaps
     # the site's width and height; the search treats rows and columns differently.
     assert gross_dies_exact(147.0, width, height) == gross_dies_exact(147.0, height, width)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    radius=st.floats(20.0, 150.0),
+    width=st.floats(2.0, 40.0),
+    height=st.floats(2.0, 40.0),
+    fx=st.floats(0.0, 0.999),
+    fy=st.floats(0.0, 0.999),
+)
+def test_count_at_an_offset_equals_corner_enumeration(radius, width, height, fx, fy):
+    # Definition of a whole site (common practice): all four corners within the usable
+    # circle. The compiled row-by-row count at one grid offset must equal a direct
+    # enumeration of sites and corners, written independently here.
+    from optimizer.formulas.grid_search import sites_at
+
+    x0, y0 = fx * width, fy * height
+    i = np.arange(-math.ceil(radius / width) - 2, math.ceil(radius / width) + 2)
+    j = np.arange(-math.ceil(radius / height) - 2, math.ceil(radius / height) + 2)
+    x_lo = x0 + i * width
+    y_lo = y0 + j * height
+    x_far = np.maximum(np.abs(x_lo), np.abs(x_lo + width))
+    y_far = np.maximum(np.abs(y_lo), np.abs(y_lo + height))
+    direct = int((x_far[None, :] ** 2 + y_far[:, None] ** 2 <= (radius + TOL_MM) ** 2).sum())
+    # A corner within rounding of the circle may fall either way; skip such draws.
+    margin = np.abs(np.hypot(x_far[None, :], y_far[:, None]) - radius).min()
+    if margin > 1e-6:
+        assert sites_at(x0, y0, radius, width, height) == direct
+
+
+def test_counting_threads_give_the_same_counts(monkeypatch):
+    # The threaded path must count exactly what the one-thread path counts.
+    from optimizer.formulas import wafer
+
+    rng = np.random.default_rng(3)
+    sides = rng.uniform(1.5, 30.0, size=(64, 2))
+    monkeypatch.setattr(wafer, "_PARALLEL_MIN_STEPS", 0.0)
+    wafer.clear_count_cache()
+    monkeypatch.setenv("DIEPLAN_COUNT_WORKERS", "2")
+    threaded = gross_dies_exact_many(147.0, sides[:, 0], sides[:, 1])
+    wafer.clear_count_cache()
+    monkeypatch.setenv("DIEPLAN_COUNT_WORKERS", "1")
+    inline = gross_dies_exact_many(147.0, sides[:, 0], sides[:, 1])
+    wafer.clear_count_cache()
+    assert np.array_equal(threaded, inline)

@@ -5,8 +5,8 @@ results in task order, whichever executor ran them, so results do not depend on 
 
 * ``workers == 1`` and no scheduler: in this process, one task after another;
 * ``workers > 1``: a :class:`concurrent.futures.ProcessPoolExecutor` of fresh (spawned)
-  processes; each sets ``DIEPLAN_COUNT_WORKERS=1`` so the evaluator does not start a
-  pool of its own inside a worker;
+  processes; each sets ``DIEPLAN_COUNT_WORKERS=1`` so the gross-die counting does not
+  start threads of its own inside a worker;
 * ``scheduler="tcp://host:port"``: an existing Dask cluster through
   ``dask.distributed.Client(address)``; its workers need dieplan installed.
 
@@ -64,8 +64,8 @@ class _Failure:
 
 
 def _guarded(fn: Callable[[Any], Any], task: Any) -> Any:
-    # A child process (pool worker, Dask nanny worker) must not start the evaluator's own
-    # counting pool; the user's process keeps its setting.
+    # A child process (pool worker, Dask nanny worker) counts gross dies on one thread:
+    # the cores are already shared among workers; the user's process keeps its setting.
     if multiprocessing.parent_process() is not None:
         os.environ["DIEPLAN_COUNT_WORKERS"] = "1"
     try:

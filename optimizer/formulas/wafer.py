@@ -14,8 +14,12 @@ a check; it ignores the die shape.
 from __future__ import annotations
 
 import math
+import os
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
+
+from optimizer.formulas.grid_search import CLEARANCE_TOL_MM, best_counts, best_offset
 
 __all__ = [
     "usable_radius_mm",
@@ -26,13 +30,9 @@ __all__ = [
     "wafer_map",
 ]
 
-# A corner may sit this far outside the circle and still count: it only absorbs
-# floating-point rounding of corners placed exactly on the edge.
-_CLEARANCE_TOL_MM = 1e-9
-
-# Candidates x rows evaluated at once; a handful of float64 temporaries of this size
-# keeps the peak well under 200 MB.
-_CHUNK_ELEMENTS = 1_000_000
+# Estimated inner-loop steps (candidate offsets x rows) above which new footprints are
+# counted on several threads; below it, starting threads costs more than it saves.
+_PARALLEL_MIN_STEPS = 2e7
 
 # Footprints are rounded to this grid before caching so that equal footprints computed
 # along different arithmetic paths share one entry.
@@ -135,71 +135,12 @@ def _check_footprint(usable_radius_mm: float, site_width_mm: float, site_height_
         )
 
 
-def _candidate_offsets(r: float, w: float, h: float) -> tuple[np.ndarray, np.ndarray]:
-    """Grid offsets at which two lattice corners lie on the circle of radius `r`.
-
-    For each lattice difference vector ``v = (a w, b h)`` with ``0 < |v| <= 2 r`` the two
-    points ``p`` with ``|p| = |p + v| = r`` are ``-v/2 +- n sqrt(r^2 - |v|^2/4)``, ``n`` a
-    unit normal of ``v``; the offset is ``p`` reduced modulo the lattice.
-
-    Only ``a >= 0, b >= 0`` and the ``+`` root are generated: the circle and the lattice
-    share the mirror symmetries x -> -x and y -> -y (and so the point reflection), which
-    leave the site count unchanged and map the touching pairs of ``(a, b)``, ``(a, -b)``,
-    ``(-a, b)``, ``(-a, -b)`` and both roots onto one another.
-    """
-    a_max = int(math.floor(2.0 * r / w))
-    b_max = int(math.floor(2.0 * r / h))
-    a, b = np.meshgrid(np.arange(a_max + 1, dtype=float), np.arange(b_max + 1, dtype=float))
-    vx = (a * w).ravel()
-    vy = (b * h).ravel()
-    len2 = vx**2 + vy**2
-    # Allow the rounding of |v| = 2r (two corners diametrically opposite).
-    keep = (len2 > 0) & (len2 <= (2.0 * r) ** 2 * (1 + 1e-12))
-    vx, vy, len2 = vx[keep], vy[keep], len2[keep]
-    length = np.sqrt(len2)
-    half_chord = np.sqrt(np.maximum(r * r - 0.25 * len2, 0.0))
-    px = -0.5 * vx - vy / length * half_chord
-    py = -0.5 * vy + vx / length * half_chord
-    return np.mod(px, w), np.mod(py, h)
-
-
 def _row_indices(r: float, h: float) -> np.ndarray:
     """Row numbers ``j`` (row spans ``[y0 + j h, y0 + (j+1) h]``, ``0 <= y0 < h``) that can
     meet the circle."""
     j_lo = int(math.floor(-r / h)) - 1
     j_hi = int(math.ceil(r / h))
     return np.arange(j_lo, j_hi + 1, dtype=float)
-
-
-def _counts_at(x0: np.ndarray, y0: np.ndarray, r: float, w: float, h: float) -> np.ndarray:
-    """Whole sites inside the circle for each offset ``(x0[k], y0[k])`` [dies]."""
-    rows = _row_indices(r, h)
-    r_tol2 = (r + _CLEARANCE_TOL_MM) ** 2
-    chunk = max(1, _CHUNK_ELEMENTS // rows.size)
-    out = np.empty(x0.size, dtype=np.int64)
-    mid_rows = (rows + 0.5) * h
-    for start in range(0, x0.size, chunk):
-        stop = min(start + chunk, x0.size)
-        # The row edge farther from the centre limits the chord: |centre| + h/2.
-        y_far = np.abs(y0[start:stop, None] + mid_rows[None, :]) + 0.5 * h
-        half_chord_w = np.sqrt(np.maximum(r_tol2 - y_far * y_far, 0.0)) / w
-        xs = x0[start:stop, None] / w
-        # Sites i with x0 + i w >= -c and x0 + (i+1) w <= c.
-        n = np.floor(half_chord_w - xs) + np.floor(half_chord_w + xs)
-        out[start:stop] = np.maximum(n, 0.0).sum(axis=1)
-    return out
-
-
-def _best_offset(r: float, w: float, h: float) -> tuple[int, float, float]:
-    """Maximum count and an offset ``(x0, y0)`` that reaches it."""
-    if 2.0 * r < min(w, h):
-        return 0, 0.0, 0.0
-    x0, y0 = _candidate_offsets(r, w, h)
-    if x0.size == 0:
-        return 0, 0.0, 0.0
-    counts = _counts_at(x0, y0, r, w, h)
-    k = int(np.argmax(counts))
-    return int(counts[k]), float(x0[k]), float(y0[k])
 
 
 def gross_dies_exact(usable_radius_mm: float, site_width_mm: float, site_height_mm: float) -> int:
@@ -243,20 +184,35 @@ def gross_dies_exact(usable_radius_mm: float, site_width_mm: float, site_height_
     second for 1 mm^2 dies.
     """
     _check_footprint(usable_radius_mm, site_width_mm, site_height_mm)
-    return _best_offset(float(usable_radius_mm), float(site_width_mm), float(site_height_mm))[0]
+    return best_offset(float(usable_radius_mm), float(site_width_mm), float(site_height_mm))[0]
 
 
 # Exact counts by rounded footprint (radius, short side, long side); a quarter turn maps
 # the grid onto itself, so sorted sides share an entry.
 _COUNT_CACHE: dict[tuple[float, float, float], int] = {}
 
-# Below this many new footprints, handing work to other processes costs more than it saves.
-_PARALLEL_MIN_FOOTPRINTS = 2000
+
+def _count_threads() -> int:
+    """Threads for counting: DIEPLAN_COUNT_WORKERS, else the CPU count (1 = in-line)."""
+    return max(1, int(os.environ.get("DIEPLAN_COUNT_WORKERS", os.cpu_count() or 1)))
 
 
-def _count_footprints(keys: list[tuple[float, float, float]]) -> list[int]:
-    """Exact counts of footprints given as (radius, short side, long side) tuples."""
-    return [_best_offset(r, w, h)[0] for r, w, h in keys]
+def _count_footprints(keys: np.ndarray) -> np.ndarray:
+    """Exact counts of footprints given as rows (radius, short side, long side)."""
+    r, w, h = (np.ascontiguousarray(keys[:, i]) for i in range(3))
+    threads = _count_threads()
+    # the search tries about (2r/w)(2r/h) offsets, each over about 2r/h rows
+    steps = float(np.sum((2 * r / w + 1) * (2 * r / h + 1) * (2 * r / h + 3)))
+    if threads == 1 or steps < _PARALLEL_MIN_STEPS or len(keys) < 2 * threads:
+        return best_counts(r, w, h)
+    # interleave so that each thread gets a similar mix of small and large dies
+    parts = [np.arange(t, len(keys), threads) for t in range(threads)]
+    out = np.empty(len(keys), dtype=np.int64)
+    with ThreadPoolExecutor(max_workers=threads) as pool:
+        counted = pool.map(lambda idx: best_counts(r[idx], w[idx], h[idx]), parts)
+        for idx, part in zip(parts, counted, strict=True):
+            out[idx] = part
+    return out
 
 
 def clear_count_cache() -> None:
@@ -264,9 +220,7 @@ def clear_count_cache() -> None:
     _COUNT_CACHE.clear()
 
 
-def gross_dies_exact_many(
-    usable_radius_mm, site_width_mm, site_height_mm, map_chunks=None
-) -> np.ndarray:
+def gross_dies_exact_many(usable_radius_mm, site_width_mm, site_height_mm) -> np.ndarray:
     """Vectorised `gross_dies_exact` over broadcast arrays of footprints.
 
     Parameters
@@ -277,9 +231,6 @@ def gross_dies_exact_many(
         Site pitch along x [mm].
     site_height_mm : float or array_like
         Site pitch along y [mm].
-    map_chunks : callable, optional
-        ``map_chunks(function, chunks)`` like the builtin ``map``; lets a caller count
-        many new footprints in parallel (each chunk is a list of footprint tuples).
 
     Returns
     -------
@@ -290,7 +241,8 @@ def gross_dies_exact_many(
     -----
     Inputs are rounded to 1e-9 mm and width/height sorted (the count is unchanged by a
     quarter turn) before a cache lookup, so each distinct footprint is counted once, also
-    across calls.
+    across calls. Many new footprints are counted on several threads (environment
+    variable DIEPLAN_COUNT_WORKERS, default the CPU count).
     """
     r, w, h = np.broadcast_arrays(
         np.asarray(usable_radius_mm, dtype=float),
@@ -304,16 +256,11 @@ def gross_dies_exact_many(
     hi = np.round(np.maximum(w, h), _CACHE_DECIMALS)
     keys = np.stack([r.ravel(), lo.ravel(), hi.ravel()], axis=1)
     unique, inverse = np.unique(keys, axis=0, return_inverse=True)
-    tuples = [(float(a), float(b), float(c)) for a, b, c in unique]
-    new = [key for key in tuples if key not in _COUNT_CACHE]
+    tuples = list(map(tuple, unique.tolist()))
+    new = [i for i, key in enumerate(tuples) if key not in _COUNT_CACHE]
     if new:
-        if map_chunks is None or len(new) < _PARALLEL_MIN_FOOTPRINTS:
-            counted = _count_footprints(new)
-        else:
-            size = max(1, -(-len(new) // 16))
-            chunks = [new[i : i + size] for i in range(0, len(new), size)]
-            counted = [n for part in map_chunks(_count_footprints, chunks) for n in part]
-        _COUNT_CACHE.update(zip(new, counted, strict=True))
+        counted = _count_footprints(unique[new]).tolist()
+        _COUNT_CACHE.update(zip((tuples[i] for i in new), counted, strict=True))
     counts = np.array([_COUNT_CACHE[key] for key in tuples], dtype=np.int64)
     return counts[np.asarray(inverse).ravel()].reshape(r.shape)
 
@@ -338,13 +285,13 @@ def wafer_map(usable_radius_mm: float, site_width_mm: float, site_height_mm: flo
     """
     _check_footprint(usable_radius_mm, site_width_mm, site_height_mm)
     r, w, h = float(usable_radius_mm), float(site_width_mm), float(site_height_mm)
-    count, x0, y0 = _best_offset(r, w, h)
+    count, x0, y0 = best_offset(r, w, h)
     if count == 0:
         return np.empty((0, 2))
     rows = _row_indices(r, h)
     y_lo = y0 + rows * h
     y_far = np.abs(y_lo + 0.5 * h) + 0.5 * h
-    half_chord = np.sqrt(np.maximum((r + _CLEARANCE_TOL_MM) ** 2 - y_far**2, 0.0))
+    half_chord = np.sqrt(np.maximum((r + CLEARANCE_TOL_MM) ** 2 - y_far**2, 0.0))
     # Same arithmetic as _counts_at so the map and the count agree to the last site.
     first = -np.floor(half_chord / w + x0 / w)
     last = np.floor(half_chord / w - x0 / w) - 1.0

@@ -160,6 +160,9 @@ def _variants(evaluator: Evaluator, contents: np.ndarray, packaging) -> tuple[Di
     return batch, {"level": arr["level"], "critical": arr["critical"]}
 
 
+_PARETO_CHUNK = 4_000_000
+
+
 def pareto_keep(group: np.ndarray, metrics: np.ndarray, depth: int = 1) -> np.ndarray:
     """Mask of rows dominated by fewer than ``depth`` other rows of the same group.
 
@@ -174,20 +177,29 @@ def pareto_keep(group: np.ndarray, metrics: np.ndarray, depth: int = 1) -> np.nd
     sizes = np.diff(np.r_[starts, len(g)])
     keep_sorted = np.ones(len(g), dtype=bool)
     m = metrics[order]
-    big = sizes > 1
-    for start, size in zip(starts[big], sizes[big], strict=True):
-        block = m[start : start + size]
-        le = np.all(block[None, :, :] <= block[:, None, :], axis=2)  # le[i, j]: j <= i
-        lt = np.any(block[None, :, :] < block[:, None, :], axis=2)
-        idx = np.arange(size)
-        tie_first = np.all(block[None, :, :] == block[:, None, :], axis=2) & (
-            idx[None, :] < idx[:, None]
-        )
-        dominators = ((le & lt) | tie_first).sum(axis=1)
-        keep_sorted[start : start + size] = dominators < depth
+    # groups of one size are compared together, as a stack
+    for size in np.unique(sizes[sizes > 1]):
+        same = starts[sizes == size]
+        # a few million comparisons at a time bound the temporaries
+        per_chunk = max(1, _PARETO_CHUNK // (size * size * m.shape[1]))
+        for first in range(0, same.size, per_chunk):
+            rows = same[first : first + per_chunk, None] + np.arange(size)[None, :]
+            keep_sorted[rows] = _dominators(m[rows]) < depth
     keep = np.empty(len(g), dtype=bool)
     keep[order] = keep_sorted
     return keep
+
+
+def _dominators(block: np.ndarray) -> np.ndarray:
+    """Per row of each (groups, size, metrics) stack: rows of its group dominating it."""
+    size = block.shape[1]
+    other = block[:, None, :, :]  # [., i, j, .]: row j ...
+    this = block[:, :, None, :]  # ... against row i
+    le = np.all(other <= this, axis=3)
+    lt = np.any(other < this, axis=3)
+    idx = np.arange(size)
+    tie_first = np.all(other == this, axis=3) & (idx[None, :] < idx[:, None])[None]
+    return ((le & lt) | tie_first).sum(axis=2)
 
 
 def build_candidates(

@@ -104,7 +104,7 @@ class Columns:
     """The lower-bounding program of one (packaging, die count) pair, as arrays."""
 
     packaging_index: int
-    n_dies: int
+    n_dies: int  # die count; with n_dies_max above it, the fewest of a range of counts
     col_c: np.ndarray  # candidate of each column
     col_k: np.ndarray  # copies of each column
     cost: np.ndarray  # objective coefficient of each column
@@ -123,6 +123,12 @@ class Columns:
     group_process: np.ndarray | None = None
     group_level: np.ndarray | None = None
     group_cost: np.ndarray | None = None
+    n_dies_max: int = 0  # 0: exactly n_dies
+
+    @property
+    def die_counts(self) -> tuple[int, int]:
+        """Fewest and most dies the program allows."""
+        return self.n_dies, max(self.n_dies, self.n_dies_max)
 
     @property
     def n_targets(self) -> int:
@@ -149,20 +155,30 @@ class Columns:
         return bound
 
 
-def build_columns(evaluator: Evaluator, candidates: CandidateSet, n_dies: int) -> Columns | None:
-    """Arrays of the lower-bounding program for one packaging option and die count."""
+def build_columns(
+    evaluator: Evaluator, candidates: CandidateSet, n_dies: int, n_dies_max: int | None = None
+) -> Columns | None:
+    """Arrays of the lower-bounding program for one packaging option and die count.
+
+    With ``n_dies_max`` the program bounds every die count from ``n_dies`` to
+    ``n_dies_max`` at once: each coefficient grows with the die count (more bond yield
+    loss, bonding and a larger carrier), so the fewest dies' coefficients, the most
+    dies' columns and the carrier under-estimator over the widest area range give a
+    bound valid for all of them.
+    """
+    n_most = n_dies if n_dies_max is None else max(n_dies, n_dies_max)
     problem = evaluator.problem
     g = candidates.packaging_index
     packaging = problem.packaging[g]
     prices = candidates.prices
     count = evaluator.blocks.count
     usable = candidates.max_copies >= 1
-    if n_dies == 1:
+    if n_most == 1:
         usable &= np.all(candidates.instances == count[None, :], axis=1)
     cand = np.flatnonzero(usable)
     if cand.size == 0:
         return None
-    reps = np.minimum(candidates.max_copies[cand], n_dies)
+    reps = np.minimum(candidates.max_copies[cand], n_most)
     col_c = np.repeat(cand, reps)
     starts = np.cumsum(reps) - reps
     col_k = np.arange(col_c.size) - np.repeat(starts, reps) + 1
@@ -187,7 +203,7 @@ def build_columns(evaluator: Evaluator, candidates: CandidateSet, n_dies: int) -
         area_cap = (
             packaging.interposer_max_area_mm2 - packaging.interposer_extra_area_mm2
         ) / packaging.interposer_area_factor
-        area_hi = min(area_cap, float(n_dies * prices.area_mm2[cand].max()))
+        area_hi = min(area_cap, float(n_most * prices.area_mm2[cand].max()))
         if area_hi < area_lo:
             return None
         slopes, intercepts = carrier_underestimator(evaluator, packaging, area_lo, area_hi)
@@ -222,6 +238,7 @@ def build_columns(evaluator: Evaluator, candidates: CandidateSet, n_dies: int) -
         carrier_slopes=slopes,
         carrier_intercepts=intercepts,
         carrier_factor=factor,
+        n_dies_max=n_most if n_most > n_dies else 0,
         **groups,
     )
 
@@ -257,7 +274,7 @@ def target_rows(columns: Columns) -> tuple[sp.csr_matrix, np.ndarray, np.ndarray
     for the base level of a process, sum k w + n sum y <= n (one target per process).
     Returns the matrix, row lower and upper bounds, and the y objective costs.
     """
-    n = columns.n_dies
+    n = columns.die_counts[1]
     n_cols = columns.n_cols
     y_groups = np.flatnonzero(columns.group_level > 0)
     y_of = {int(g): j for j, g in enumerate(y_groups)}
@@ -311,8 +328,9 @@ def relax(columns: Columns) -> RelaxedBound:
     n_y = columns.n_targets
     n_var = n + n_y + (1 if interposer else 0)
     blocks = [columns.cover, sp.csr_matrix(columns.col_k.astype(float)[None, :])]
-    lower = [columns.cover_rhs, np.array([columns.n_dies], dtype=float)]
-    upper = [columns.cover_rhs, np.array([columns.n_dies], dtype=float)]
+    fewest, most = columns.die_counts
+    lower = [columns.cover_rhs, np.array([fewest], dtype=float)]
+    upper = [columns.cover_rhs, np.array([most], dtype=float)]
     groups, inverse, sizes = np.unique(columns.once_groups, return_inverse=True, return_counts=True)
     multi = sizes[inverse] > 1
     if multi.any():
@@ -405,6 +423,8 @@ class SubProblem:
 
 def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
     """The Pyomo integer program over the columns ``keep`` (indices into ``columns``)."""
+    if columns.n_dies_max:
+        raise ValueError("an integer program needs one die count, not a range")
     keep = np.asarray(keep, dtype=np.int64)
     m = pyo.ConcreteModel()
     m.w = pyo.Var(range(keep.size), domain=pyo.Binary)

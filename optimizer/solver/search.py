@@ -89,7 +89,6 @@ def milp_search(
     cached = candidate_cache.get(key) if candidate_cache is not None else None
     contents = enumerate_contents(evaluator) if cached is None else None
     candidates: dict[int, CandidateSet] = {}
-    programs: list[tuple[float, Columns]] = []
     for g, packaging in enumerate(problem.packaging):
         cset = (
             cached[g]
@@ -98,19 +97,8 @@ def milp_search(
         )
         candidates[g] = cset
         log.append(f"packaging {packaging.name}: {len(cset)} candidate dies after pruning")
-        n_max = min(packaging.max_dies, problem.constraints.max_dies)
-        # one-die products are all priced exactly below (salvage revenue included), so
-        # the programs start at two dies
-        for n in range(2, n_max + 1):
-            columns = build_columns(evaluator, cset, n)
-            if columns is not None:
-                programs.append((columns.quick_bound(), columns))
-    programs.sort(key=lambda item: item[0])
     if candidate_cache is not None:
         candidate_cache[key] = candidates
-    log.append(
-        f"{len(programs)} (packaging, die count) programs in {time.perf_counter() - start:.2f} s"
-    )
 
     exact: dict[Selection, float] = {}
 
@@ -146,8 +134,37 @@ def milp_search(
                 exact[sel] = float(revenue - profit)
 
     timed_out = False
-    relaxed: list[tuple[float, Columns, RelaxedBound]] = []
     unexplored: list[float] = []
+    programs: list[tuple[float, Columns]] = []
+    n_programs = 0
+    # Every packaging's die counts 2..n_max are first bounded together by one program;
+    # only when that bound is open are the die counts built and bounded one by one.
+    for g, packaging in enumerate(problem.packaging):
+        n_max = min(packaging.max_dies, problem.constraints.max_dies)
+        if n_max < 2 or len(candidates[g]) == 0:
+            continue
+        n_programs += n_max - 1
+        if n_max > 2:
+            merged = build_columns(evaluator, candidates[g], 2, n_max)
+            if merged is None or not open_bound(merged.quick_bound()):
+                continue
+            # out of time, the die counts are listed below and left unexplored
+            if not out_of_time():
+                bound = relax(merged)
+                if not bound.feasible or not open_bound(bound.value):
+                    log.append(f"packaging {packaging.name}: 2 to {n_max} dies closed together")
+                    continue
+        for n in range(2, n_max + 1):
+            columns = build_columns(evaluator, candidates[g], n)
+            if columns is not None:
+                programs.append((columns.quick_bound(), columns))
+    programs.sort(key=lambda item: item[0])
+    log.append(
+        f"{len(programs)} of {n_programs} (packaging, die count) programs open after joint "
+        f"bounds, {time.perf_counter() - start:.2f} s"
+    )
+
+    relaxed: list[tuple[float, Columns, RelaxedBound]] = []
     # programs in order of their quick bound: relax those that can still beat the threshold
     for quick, columns in programs:
         if not open_bound(quick):
@@ -235,7 +252,8 @@ def milp_search(
             for line in s.log
         )
     stats = {
-        "programs": len(programs),
+        "programs": n_programs,
+        "programs_built": len(programs),
         "relaxations": len(relaxed),
         "programs_searched": len(subs),
         "rounds": sum(s.rounds for s in subs),

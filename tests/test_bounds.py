@@ -1,0 +1,96 @@
+"""The solver's pruning and bounding steps against their definitions and brute force.
+
+Dominance pruning is checked against the definition written out as a plain double loop;
+the joint bound over a range of die counts is checked against the per-count bounds and
+against the exhaustive reference (every partition priced exactly).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from optimizer.evaluator import Evaluator
+from optimizer.problem import ProblemError, parse_problem
+from optimizer.solver import solve
+from optimizer.solver.candidates import build_candidates, enumerate_contents, pareto_keep
+from optimizer.solver.milp import build_columns, relax
+from tests.test_solver import random_problem
+
+
+def dominators_by_definition(group, metrics):
+    """Rows of the same group no worse everywhere and better somewhere, or an equal
+    earlier row (the tie rule), counted for each row."""
+    n = len(group)
+    out = np.zeros(n, dtype=int)
+    for i in range(n):
+        for j in range(n):
+            if i == j or group[i] != group[j]:
+                continue
+            no_worse = all(metrics[j] <= metrics[i])
+            better = any(metrics[j] < metrics[i])
+            tie_first = all(metrics[j] == metrics[i]) and j < i
+            out[i] += (no_worse and better) or tie_first
+    return out
+
+
+@pytest.mark.parametrize("depth", [1, 2, 3])
+@pytest.mark.parametrize("seed", range(5))
+def test_pareto_keep_follows_the_definition(seed, depth):
+    rng = np.random.default_rng(seed)
+    n = 300
+    group = rng.integers(0, 40, size=n)
+    # few distinct values so that ties and dominance both occur often
+    metrics = rng.integers(0, 4, size=(n, 3)).astype(float)
+    expected = dominators_by_definition(group, metrics) < depth
+    assert np.array_equal(pareto_keep(group, metrics, depth), expected)
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_joint_bound_over_die_counts_is_below_every_count(seed):
+    # The joint program over die counts 2..n_max must bound every count's program from
+    # below, and the true cost (exhaustive reference) of every multi-die design.
+    problem = parse_problem(random_problem(seed))
+    evaluator = Evaluator(problem)
+    contents = enumerate_contents(evaluator)
+    checked = 0
+    for g, packaging in enumerate(problem.packaging):
+        n_max = min(packaging.max_dies, problem.constraints.max_dies)
+        if n_max < 3:
+            continue
+        cset = build_candidates(evaluator, g, contents)
+        if len(cset) == 0:
+            continue
+        joint = build_columns(evaluator, cset, 2, n_max)
+        if joint is None:
+            continue
+        joint_bound = relax(joint)
+        per_count = [build_columns(evaluator, cset, n) for n in range(2, n_max + 1)]
+        for columns in per_count:
+            if columns is None:
+                continue
+            assert joint.quick_bound() <= columns.quick_bound() * (1 + 1e-12) + 1e-6
+            bound = relax(columns)
+            if bound.feasible:
+                assert joint_bound.feasible
+                assert joint_bound.value <= bound.value * (1 + 1e-12) + 1e-6
+        checked += 1
+    if checked == 0:
+        pytest.skip("no packaging with three or more dies in this draw")
+    try:
+        brute = solve(problem, top=40, method="exhaustive")
+    except ProblemError:
+        return
+    revenue = problem.market.unit_price * problem.market.volume
+    for design in brute.designs:
+        n_dies = sum(die.copies for die in design.dies)
+        g = [p.name for p in problem.packaging].index(design.packaging)
+        n_max = min(problem.packaging[g].max_dies, problem.constraints.max_dies)
+        if n_dies < 2 or n_max < 3:
+            continue
+        joint = build_columns(evaluator, build_candidates(evaluator, g, contents), 2, n_max)
+        total_cost = revenue - design.profit
+        assert math.isfinite(total_cost)
+        assert relax(joint).value <= total_cost * (1 + 1e-9) + 1e-6
