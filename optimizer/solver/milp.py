@@ -26,6 +26,7 @@ solved by HiGHS), which keeps it small without losing any selection that could r
 from __future__ import annotations
 
 import contextlib
+import functools
 import math
 import os
 import sys
@@ -124,11 +125,24 @@ class Columns:
     group_level: np.ndarray | None = None
     group_cost: np.ndarray | None = None
     n_dies_max: int = 0  # 0: exactly n_dies
+    # die count the columns and carrier rows are built for; programs of one packaging
+    # built for one span share rows and columns (columns above their count unusable)
+    span: int = 0
 
     @property
     def die_counts(self) -> tuple[int, int]:
         """Fewest and most dies the program allows."""
         return self.n_dies, max(self.n_dies, self.n_dies_max)
+
+    @functools.cached_property
+    def linear_program(self) -> _LinearProgram:
+        """The relaxation's arrays (built once: bounds and the solve both use them)."""
+        return _linear_program(self)
+
+    @property
+    def usable(self) -> np.ndarray:
+        """Columns this program may use: no more copies than its most dies."""
+        return self.col_k <= self.die_counts[1]
 
     @property
     def n_targets(self) -> int:
@@ -143,7 +157,7 @@ class Columns:
         """A bound needing no solve: each block instance pays at least the cheapest
         per-instance share of any column covering it (the carrier at its floor)."""
         instances = np.asarray(self.cover.sum(axis=0)).ravel()
-        share = self.cost / instances
+        share = np.where(self.usable, self.cost / instances, np.inf)
         per_block = np.full(self.cover.shape[0], np.inf)
         rows, cols = self.cover.nonzero()
         np.minimum.at(per_block, rows, share[cols])
@@ -156,7 +170,11 @@ class Columns:
 
 
 def build_columns(
-    evaluator: Evaluator, candidates: CandidateSet, n_dies: int, n_dies_max: int | None = None
+    evaluator: Evaluator,
+    candidates: CandidateSet,
+    n_dies: int,
+    n_dies_max: int | None = None,
+    span: int | None = None,
 ) -> Columns | None:
     """Arrays of the lower-bounding program for one packaging option and die count.
 
@@ -165,8 +183,13 @@ def build_columns(
     loss, bonding and a larger carrier), so the fewest dies' coefficients, the most
     dies' columns and the carrier under-estimator over the widest area range give a
     bound valid for all of them.
+
+    With ``span`` the columns (up to ``span`` copies) and the carrier under-estimator are
+    those of ``span`` dies, so that programs of one packaging line up row by row and
+    column by column and one program's duals give a bound of another (`dual_bound`).
     """
     n_most = n_dies if n_dies_max is None else max(n_dies, n_dies_max)
+    span = max(n_most, span or 0)
     problem = evaluator.problem
     g = candidates.packaging_index
     packaging = problem.packaging[g]
@@ -178,7 +201,7 @@ def build_columns(
     cand = np.flatnonzero(usable)
     if cand.size == 0:
         return None
-    reps = np.minimum(candidates.max_copies[cand], n_most)
+    reps = np.minimum(candidates.max_copies[cand], span)
     col_c = np.repeat(cand, reps)
     starts = np.cumsum(reps) - reps
     col_k = np.arange(col_c.size) - np.repeat(starts, reps) + 1
@@ -203,7 +226,7 @@ def build_columns(
         area_cap = (
             packaging.interposer_max_area_mm2 - packaging.interposer_extra_area_mm2
         ) / packaging.interposer_area_factor
-        area_hi = min(area_cap, float(n_most * prices.area_mm2[cand].max()))
+        area_hi = min(area_cap, float(span * prices.area_mm2[cand].max()))
         if area_hi < area_lo:
             return None
         slopes, intercepts = carrier_underestimator(evaluator, packaging, area_lo, area_hi)
@@ -239,6 +262,7 @@ def build_columns(
         carrier_intercepts=intercepts,
         carrier_factor=factor,
         n_dies_max=n_most if n_most > n_dies else 0,
+        span=span,
         **groups,
     )
 
@@ -313,22 +337,36 @@ def target_rows(columns: Columns) -> tuple[sp.csr_matrix, np.ndarray, np.ndarray
 
 @dataclass(frozen=True)
 class RelaxedBound:
-    """The linear relaxation: its optimum (a lower bound) and reduced costs."""
+    """The linear relaxation: its optimum (a lower bound), reduced costs and row duals."""
 
     value: float
     reduced_cost: np.ndarray
     at_zero: np.ndarray  # columns at zero in the relaxed optimum
     feasible: bool
+    row_dual: np.ndarray | None = None
 
 
-def relax(columns: Columns) -> RelaxedBound:
-    """Solve the linear relaxation with HiGHS directly on the arrays."""
+@dataclass(frozen=True)
+class _LinearProgram:
+    """min cost x + constant, row_lower <= A x <= row_upper, col_lower <= x <= col_upper."""
+
+    matrix: sp.csc_matrix
+    row_lower: np.ndarray
+    row_upper: np.ndarray
+    col_lower: np.ndarray
+    col_upper: np.ndarray
+    cost: np.ndarray
+    constant: float
+
+
+def _linear_program(columns: Columns) -> _LinearProgram:
+    """The relaxation's arrays: variables [w, y targets, carrier]; rows cover, count,
+    once, targets, area cap and carrier under-estimator."""
     n = columns.n_cols
     interposer = columns.carrier_slopes is not None
     n_y = columns.n_targets
-    n_var = n + n_y + (1 if interposer else 0)
-    blocks = [columns.cover, sp.csr_matrix(columns.col_k.astype(float)[None, :])]
     fewest, most = columns.die_counts
+    blocks = [columns.cover, sp.csr_matrix(columns.col_k.astype(float)[None, :])]
     lower = [columns.cover_rhs, np.array([fewest], dtype=float)]
     upper = [columns.cover_rhs, np.array([most], dtype=float)]
     groups, inverse, sizes = np.unique(columns.once_groups, return_inverse=True, return_counts=True)
@@ -367,18 +405,35 @@ def relax(columns: Columns) -> RelaxedBound:
         a = sp.vstack([a, area_row, pwl], format="csr")
         lower += [np.array([-np.inf]), columns.carrier_intercepts]
         upper += [np.array([columns.area_cap]), np.full(len(columns.carrier_slopes), np.inf)]
-    a = a.tocsc()
-    cost = np.r_[columns.cost, y_cost, [columns.carrier_factor] if interposer else []]
+    n_var = n + n_y + (1 if interposer else 0)
+    return _LinearProgram(
+        matrix=a.tocsc(),
+        row_lower=np.concatenate(lower).astype(float),
+        row_upper=np.concatenate(upper).astype(float),
+        col_lower=np.zeros(n_var),
+        col_upper=np.r_[columns.usable.astype(float), np.ones(n_y), [np.inf] if interposer else []],
+        cost=np.r_[columns.cost, y_cost, [columns.carrier_factor] if interposer else []].astype(
+            float
+        ),
+        constant=columns.constant,
+    )
+
+
+def relax(columns: Columns) -> RelaxedBound:
+    """Solve the linear relaxation with HiGHS directly on the arrays."""
+    n = columns.n_cols
+    program = columns.linear_program
+    a = program.matrix
     h = highspy.Highs()
     h.setOptionValue("output_flag", False)
     lp = highspy.HighsLp()
-    lp.num_col_ = n_var
+    lp.num_col_ = a.shape[1]
     lp.num_row_ = a.shape[0]
-    lp.col_cost_ = cost.astype(float)
-    lp.col_lower_ = np.zeros(n_var)
-    lp.col_upper_ = np.r_[np.ones(n + n_y), [np.inf] if interposer else []]
-    lp.row_lower_ = np.concatenate(lower).astype(float)
-    lp.row_upper_ = np.concatenate(upper).astype(float)
+    lp.col_cost_ = program.cost
+    lp.col_lower_ = program.col_lower
+    lp.col_upper_ = program.col_upper
+    lp.row_lower_ = program.row_lower
+    lp.row_upper_ = program.row_upper
     lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
     lp.a_matrix_.start_ = a.indptr.astype(np.int32)
     lp.a_matrix_.index_ = a.indices.astype(np.int32)
@@ -391,8 +446,35 @@ def relax(columns: Columns) -> RelaxedBound:
     solution = h.getSolution()
     x = np.asarray(solution.col_value)[:n]
     reduced = np.asarray(solution.col_dual)[:n]
-    value = h.getInfo().objective_function_value + columns.constant
-    return RelaxedBound(float(value), reduced, x < 1e-9, True)
+    value = h.getInfo().objective_function_value + program.constant
+    row_dual = np.asarray(solution.row_dual, dtype=float)
+    return RelaxedBound(float(value), reduced, x < 1e-9, True, row_dual)
+
+
+def dual_bound(columns: Columns, row_dual: np.ndarray) -> float:
+    """Lagrangian lower bound of the program from any row multipliers, without a solve.
+
+    For multipliers u the bound is ``constant + sum_i u_i b_i(u) + sum_j min over
+    [l_j, u_j] of (c - A' u)_j x_j`` with ``b_i`` the row's lower side where ``u_i > 0``
+    and its upper side where ``u_i < 0``; it is valid for every u (weak duality), and the
+    duals of a program built for the same span (same rows and columns) make it tight
+    when the two programs are close.
+    """
+    program = columns.linear_program
+    u = np.asarray(row_dual, dtype=float).copy()
+    if u.shape != program.row_lower.shape:
+        return -math.inf
+    side = np.where(u > 0, program.row_lower, np.where(u < 0, program.row_upper, 0.0))
+    unbounded = ~np.isfinite(side)
+    u[unbounded] = 0.0  # a multiplier toward an open side would give no bound
+    side[unbounded] = 0.0
+    reduced = program.cost - program.matrix.T @ u
+    if np.any((reduced < 0) & ~np.isfinite(program.col_upper)):
+        return -math.inf
+    at_upper = reduced < 0
+    columns_part = float(np.sum(reduced[at_upper] * program.col_upper[at_upper]))
+    columns_part += float(np.sum(reduced[~at_upper] * program.col_lower[~at_upper]))
+    return program.constant + float(u @ side) + columns_part
 
 
 @dataclass
@@ -426,6 +508,7 @@ def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
     if columns.n_dies_max:
         raise ValueError("an integer program needs one die count, not a range")
     keep = np.asarray(keep, dtype=np.int64)
+    keep = keep[columns.usable[keep]]
     m = pyo.ConcreteModel()
     m.w = pyo.Var(range(keep.size), domain=pyo.Binary)
     w = [m.w[i] for i in range(keep.size)]

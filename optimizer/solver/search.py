@@ -25,6 +25,7 @@ from optimizer.solver.milp import (
     build_columns,
     build_subproblem,
     cut_current,
+    dual_bound,
     relax,
     solve_round,
 )
@@ -137,61 +138,64 @@ def milp_search(
     unexplored: list[float] = []
     programs: list[tuple[float, Columns]] = []
     n_programs = 0
-    # Every packaging's die counts 2..n_max are first bounded together by one program;
-    # only when that bound is open are the die counts built and bounded one by one.
+    # Every packaging's die counts 2..n_max are first bounded together by one program.
+    # When that bound is open, each die count gets a program built on the same rows and
+    # columns, so the joint program's duals bound it without a solve (`dual_bound`).
     for g, packaging in enumerate(problem.packaging):
         n_max = min(packaging.max_dies, problem.constraints.max_dies)
         if n_max < 2 or len(candidates[g]) == 0:
             continue
         n_programs += n_max - 1
+        joint_bound = None
         if n_max > 2:
-            merged = build_columns(evaluator, candidates[g], 2, n_max)
-            if merged is None or not open_bound(merged.quick_bound()):
+            joint = build_columns(evaluator, candidates[g], 2, n_max)
+            if joint is None or not open_bound(joint.quick_bound()):
                 continue
             # out of time, the die counts are listed below and left unexplored
             if not out_of_time():
-                bound = relax(merged)
-                if not bound.feasible or not open_bound(bound.value):
+                joint_bound = relax(joint)
+                if not joint_bound.feasible or not open_bound(joint_bound.value):
                     log.append(f"packaging {packaging.name}: 2 to {n_max} dies closed together")
                     continue
+            del joint
         for n in range(2, n_max + 1):
-            columns = build_columns(evaluator, candidates[g], n)
-            if columns is not None:
-                programs.append((columns.quick_bound(), columns))
+            columns = build_columns(evaluator, candidates[g], n, span=n_max)
+            if columns is None:
+                continue
+            cheap = columns.quick_bound()
+            if joint_bound is not None and open_bound(cheap):
+                cheap = max(cheap, dual_bound(columns, joint_bound.row_dual))
+            programs.append((cheap, columns))
     programs.sort(key=lambda item: item[0])
     log.append(
-        f"{len(programs)} of {n_programs} (packaging, die count) programs open after joint "
-        f"bounds, {time.perf_counter() - start:.2f} s"
+        f"{sum(open_bound(b) for b, _ in programs)} of {n_programs} (packaging, die count) "
+        f"programs open after joint bounds, {time.perf_counter() - start:.2f} s"
     )
 
+    # Programs in order of their cheapest bound: the most promising is relaxed and
+    # searched first, so that its designs tighten the threshold for the others.
     relaxed: list[tuple[float, Columns, RelaxedBound]] = []
-    # programs in order of their quick bound: relax those that can still beat the threshold
-    for quick, columns in programs:
-        if not open_bound(quick):
-            continue
-        if out_of_time():
-            timed_out = True
-            unexplored.append(quick)
-            continue
-        bound = relax(columns)
-        if bound.feasible and open_bound(bound.value):
-            relaxed.append((bound.value, columns, bound))
-    relaxed.sort(key=lambda item: item[0])
-    log.append(f"{len(relaxed)} relaxations kept, {time.perf_counter() - start:.2f} s")
-
     subs: list[SubProblem] = []
-    for value, columns, bound in relaxed:
-        if not open_bound(value):
+    for cheap, columns in programs:
+        if not open_bound(cheap):
             continue
         if timed_out or out_of_time():
             timed_out = True
-            unexplored.append(value)
+            unexplored.append(cheap)
             continue
+        bound = relax(columns)
+        columns.__dict__.pop("linear_program", None)  # arrays no longer needed: free them
+        if not bound.feasible or not open_bound(bound.value):
+            continue
+        value = bound.value
+        relaxed.append((value, columns, bound))
         # a small program over the least-reduced-cost columns tightens the threshold first,
         # so that the screen below drops as many columns as possible
-        order = np.argsort(bound.reduced_cost, kind="stable")
+        usable = columns.usable
+        order = np.argsort(np.where(usable, bound.reduced_cost, np.inf), kind="stable")
         few = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
-        if few.size < columns.n_cols:
+        few = few[usable[few]]
+        if few.size < usable.sum():
             scout = build_subproblem(columns, few)
             for _ in range(top):
                 solve_round(scout, remaining())
@@ -200,13 +204,14 @@ def milp_search(
                     break
                 cut_current(scout)
         limit = threshold() * (1 + REL_TOL) + 1e-6
-        keep = np.flatnonzero(~(bound.at_zero & (value + bound.reduced_cost > limit)))
+        keep = np.flatnonzero(usable & ~(bound.at_zero & (value + bound.reduced_cost > limit)))
         sub = build_subproblem(columns, keep)
         sub.bound = value
-        sub.log.append(f"relaxation {value:.8g}; {keep.size} of {columns.n_cols} columns kept")
+        sub.log.append(f"relaxation {value:.8g}; {sub.keep.size} of {columns.n_cols} columns kept")
         subs.append(sub)
         solve_round(sub, remaining())
         price(sub)
+    log.append(f"{len(relaxed)} relaxations kept, {time.perf_counter() - start:.2f} s")
     while not timed_out:
         open_subs = [s for s in subs if not s.exhausted and open_bound(s.bound)]
         if not open_subs:
