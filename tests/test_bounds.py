@@ -94,3 +94,17 @@ def test_joint_bound_over_die_counts_is_below_every_count(seed):
         total_cost = revenue - design.profit
         assert math.isfinite(total_cost)
         assert relax(joint).value <= total_cost * (1 + 1e-9) + 1e-6
+
+
+def test_row_groups_match_rowwise_unique():
+    # Equal rows must share a group and different rows must not, as numpy.unique with
+    # axis=0 groups them (the reference).
+    from optimizer.solver.candidates import _row_groups
+
+    rng = np.random.default_rng(7)
+    rows = rng.integers(0, 3, size=(500, 6))
+    ours = _row_groups(rows)
+    reference = np.unique(rows, axis=0, return_inverse=True)[1].ravel()
+    same_ours = ours[:, None] == ours[None, :]
+    same_ref = reference[:, None] == reference[None, :]
+    assert np.array_equal(same_ours, same_ref)

@@ -220,6 +220,17 @@ def clear_count_cache() -> None:
     _COUNT_CACHE.clear()
 
 
+def _unique_footprints(r: np.ndarray, lo: np.ndarray, hi: np.ndarray):
+    """Distinct (radius, short, long) rows and the inverse index, as `numpy.unique`
+    with ``axis=0`` gives, but by 1-D sorts (a call rarely has more than a few radii)."""
+    radii, r_inverse = np.unique(r, return_inverse=True)
+    if radii.size == 1:
+        sides, inverse = np.unique(lo + 1j * hi, return_inverse=True)  # sorts by (lo, hi)
+        unique = np.column_stack([np.full(sides.size, radii[0]), sides.real, sides.imag])
+        return unique, inverse
+    return np.unique(np.stack([r, lo, hi], axis=1), axis=0, return_inverse=True)
+
+
 def gross_dies_exact_many(usable_radius_mm, site_width_mm, site_height_mm) -> np.ndarray:
     """Vectorised `gross_dies_exact` over broadcast arrays of footprints.
 
@@ -254,8 +265,7 @@ def gross_dies_exact_many(usable_radius_mm, site_width_mm, site_height_mm) -> np
     r = np.round(r, _CACHE_DECIMALS)
     lo = np.round(np.minimum(w, h), _CACHE_DECIMALS)
     hi = np.round(np.maximum(w, h), _CACHE_DECIMALS)
-    keys = np.stack([r.ravel(), lo.ravel(), hi.ravel()], axis=1)
-    unique, inverse = np.unique(keys, axis=0, return_inverse=True)
+    unique, inverse = _unique_footprints(r.ravel(), lo.ravel(), hi.ravel())
     tuples = list(map(tuple, unique.tolist()))
     new = [i for i, key in enumerate(tuples) if key not in _COUNT_CACHE]
     if new:

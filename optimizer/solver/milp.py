@@ -419,19 +419,23 @@ def _linear_program(columns: Columns) -> _LinearProgram:
     )
 
 
-def relax(columns: Columns) -> RelaxedBound:
-    """Solve the linear relaxation with HiGHS directly on the arrays."""
-    n = columns.n_cols
-    program = columns.linear_program
-    a = program.matrix
+# Programs with more columns than this are relaxed by column generation.
+_GENERATE_ABOVE = 20_000
+_FIRST_COLUMNS = 4_000
+_ADD_COLUMNS = 4_000
+
+
+def _solver_for(program: _LinearProgram, cols: np.ndarray) -> highspy.Highs:
+    """A HiGHS instance holding the relaxation restricted to the variables ``cols``."""
+    a = program.matrix[:, cols]
     h = highspy.Highs()
     h.setOptionValue("output_flag", False)
     lp = highspy.HighsLp()
     lp.num_col_ = a.shape[1]
     lp.num_row_ = a.shape[0]
-    lp.col_cost_ = program.cost
-    lp.col_lower_ = program.col_lower
-    lp.col_upper_ = program.col_upper
+    lp.col_cost_ = program.cost[cols]
+    lp.col_lower_ = program.col_lower[cols]
+    lp.col_upper_ = program.col_upper[cols]
     lp.row_lower_ = program.row_lower
     lp.row_upper_ = program.row_upper
     lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
@@ -439,16 +443,118 @@ def relax(columns: Columns) -> RelaxedBound:
     lp.a_matrix_.index_ = a.indices.astype(np.int32)
     lp.a_matrix_.value_ = a.data.astype(float)
     h.passModel(lp)
-    h.run()
-    status = h.getModelStatus()
-    if status != highspy.HighsModelStatus.kOptimal:
-        return RelaxedBound(math.inf, np.zeros(n), np.ones(n, dtype=bool), False)
-    solution = h.getSolution()
-    x = np.asarray(solution.col_value)[:n]
-    reduced = np.asarray(solution.col_dual)[:n]
-    value = h.getInfo().objective_function_value + program.constant
-    row_dual = np.asarray(solution.row_dual, dtype=float)
-    return RelaxedBound(float(value), reduced, x < 1e-9, True, row_dual)
+    return h
+
+
+def _add_columns(h: highspy.Highs, program: _LinearProgram, cols: np.ndarray) -> None:
+    a = program.matrix[:, cols]
+    h.addCols(
+        int(cols.size),
+        program.cost[cols],
+        program.col_lower[cols],
+        program.col_upper[cols],
+        int(a.nnz),
+        a.indptr[:-1].astype(np.int32),
+        a.indices.astype(np.int32),
+        a.data.astype(float),
+    )
+
+
+def relax(
+    columns: Columns, row_hint: np.ndarray | None = None, stop_above: float = math.inf
+) -> RelaxedBound:
+    """Solve the linear relaxation with HiGHS directly on the arrays.
+
+    Large programs are solved by column generation: a restricted program over the most
+    promising columns (least reduced cost under ``row_hint``, duals of a program with the
+    same rows, else least cost per block instance), then the columns whose reduced cost
+    under its duals is negative are added until there are none. The value returned is
+    the Lagrangian bound of those duals over all columns (`dual_bound`), a valid bound
+    at any stage, so the generation stops early once it reaches ``stop_above``.
+    """
+    n = columns.n_cols
+    program = columns.linear_program
+    n_var = program.cost.size
+    extra = np.arange(n, n_var)  # target and carrier variables stay in every program
+    usable = np.flatnonzero(columns.usable)
+    if usable.size <= _GENERATE_ABOVE:
+        chosen = np.r_[usable, extra]
+    else:
+        chosen = np.r_[_first_columns(columns, program, usable, row_hint), extra]
+    in_program = np.zeros(n_var, dtype=bool)
+    in_program[chosen] = True
+    h = _solver_for(program, chosen)
+    order = chosen.tolist()
+    while True:
+        h.run()
+        if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
+            missing = usable[~in_program[usable]]
+            if missing.size == 0:
+                return RelaxedBound(math.inf, np.zeros(n), np.ones(n, dtype=bool), False)
+            # restricted program infeasible: widen it (cheapest shares first)
+            more = _by_share(columns, missing)[: max(_ADD_COLUMNS, 4 * len(order))]
+            _add_columns(h, program, more)
+            in_program[more] = True
+            order += more.tolist()
+            continue
+        solution = h.getSolution()
+        row_dual = np.asarray(solution.row_dual, dtype=float)
+        reduced_all = program.cost - program.matrix.T @ row_dual
+        value = _lagrangian(program, row_dual, reduced_all)
+        pricing = np.flatnonzero(~in_program[:n] & columns.usable & (reduced_all[:n] < 0))
+        if pricing.size == 0 or value >= stop_above:
+            break
+        best = pricing[np.argsort(reduced_all[pricing], kind="stable")[:_ADD_COLUMNS]]
+        _add_columns(h, program, best)
+        in_program[best] = True
+        order += best.tolist()
+    x = np.zeros(n_var)
+    x[np.asarray(order)] = np.asarray(solution.col_value)
+    value = min(value, h.getInfo().objective_function_value + program.constant)
+    return RelaxedBound(float(value), reduced_all[:n], x[:n] < 1e-9, True, row_dual)
+
+
+def _by_share(columns: Columns, cols: np.ndarray) -> np.ndarray:
+    """``cols`` ordered by cost per block instance covered, cheapest first."""
+    instances = np.asarray(columns.cover[:, cols].sum(axis=0)).ravel()
+    return cols[np.argsort(columns.cost[cols] / instances, kind="stable")]
+
+
+def _first_columns(
+    columns: Columns, program: _LinearProgram, usable: np.ndarray, row_hint: np.ndarray | None
+) -> np.ndarray:
+    """Columns to start column generation with."""
+    if row_hint is not None and row_hint.shape == program.row_lower.shape:
+        reduced = program.cost[usable] - program.matrix[:, usable].T @ row_hint
+        first = usable[np.argsort(reduced, kind="stable")[:_FIRST_COLUMNS]]
+    else:
+        first = _by_share(columns, usable)[:_FIRST_COLUMNS]
+    # and for every block the columns that cover it most cheaply, so that it can be covered
+    cover = columns.cover[:, usable].tocsr()
+    share = columns.cost[usable] / np.asarray(cover.sum(axis=0)).ravel()
+    per_block = []
+    for b in range(cover.shape[0]):
+        idx = cover.indices[cover.indptr[b] : cover.indptr[b + 1]]
+        per_block.append(idx[np.argsort(share[idx], kind="stable")[:50]])
+    return np.union1d(first, usable[np.concatenate(per_block)])
+
+
+def _lagrangian(program: _LinearProgram, row_dual: np.ndarray, reduced: np.ndarray) -> float:
+    """Lagrangian bound of ``program`` for multipliers ``row_dual`` whose reduced costs
+    ``c - A' u`` are ``reduced`` (see `dual_bound`)."""
+    u = row_dual
+    side = np.where(u > 0, program.row_lower, np.where(u < 0, program.row_upper, 0.0))
+    unbounded = ~np.isfinite(side)
+    if unbounded.any():
+        u = np.where(unbounded, 0.0, u)
+        side = np.where(unbounded, 0.0, side)
+        reduced = program.cost - program.matrix.T @ u
+    if np.any((reduced < 0) & ~np.isfinite(program.col_upper)):
+        return -math.inf
+    at_upper = reduced < 0
+    total = float(np.sum(reduced[at_upper] * program.col_upper[at_upper]))
+    total += float(np.sum(reduced[~at_upper] * program.col_lower[~at_upper]))
+    return program.constant + float(u @ side) + total
 
 
 def dual_bound(columns: Columns, row_dual: np.ndarray) -> float:
@@ -461,20 +567,10 @@ def dual_bound(columns: Columns, row_dual: np.ndarray) -> float:
     when the two programs are close.
     """
     program = columns.linear_program
-    u = np.asarray(row_dual, dtype=float).copy()
+    u = np.asarray(row_dual, dtype=float)
     if u.shape != program.row_lower.shape:
         return -math.inf
-    side = np.where(u > 0, program.row_lower, np.where(u < 0, program.row_upper, 0.0))
-    unbounded = ~np.isfinite(side)
-    u[unbounded] = 0.0  # a multiplier toward an open side would give no bound
-    side[unbounded] = 0.0
-    reduced = program.cost - program.matrix.T @ u
-    if np.any((reduced < 0) & ~np.isfinite(program.col_upper)):
-        return -math.inf
-    at_upper = reduced < 0
-    columns_part = float(np.sum(reduced[at_upper] * program.col_upper[at_upper]))
-    columns_part += float(np.sum(reduced[~at_upper] * program.col_lower[~at_upper]))
-    return program.constant + float(u @ side) + columns_part
+    return _lagrangian(program, u, program.cost - program.matrix.T @ u)
 
 
 @dataclass

@@ -136,7 +136,7 @@ def milp_search(
 
     timed_out = False
     unexplored: list[float] = []
-    programs: list[tuple[float, Columns]] = []
+    programs: list[tuple[float, Columns, np.ndarray | None]] = []
     n_programs = 0
     # Every packaging's die counts 2..n_max are first bounded together by one program.
     # When that bound is open, each die count gets a program built on the same rows and
@@ -153,7 +153,7 @@ def milp_search(
                 continue
             # out of time, the die counts are listed below and left unexplored
             if not out_of_time():
-                joint_bound = relax(joint)
+                joint_bound = relax(joint, stop_above=threshold())
                 if not joint_bound.feasible or not open_bound(joint_bound.value):
                     log.append(f"packaging {packaging.name}: 2 to {n_max} dies closed together")
                     continue
@@ -165,10 +165,11 @@ def milp_search(
             cheap = columns.quick_bound()
             if joint_bound is not None and open_bound(cheap):
                 cheap = max(cheap, dual_bound(columns, joint_bound.row_dual))
-            programs.append((cheap, columns))
+            hint = joint_bound.row_dual if joint_bound is not None else None
+            programs.append((cheap, columns, hint))
     programs.sort(key=lambda item: item[0])
     log.append(
-        f"{sum(open_bound(b) for b, _ in programs)} of {n_programs} (packaging, die count) "
+        f"{sum(open_bound(b) for b, _, _ in programs)} of {n_programs} (packaging, die count) "
         f"programs open after joint bounds, {time.perf_counter() - start:.2f} s"
     )
 
@@ -176,14 +177,14 @@ def milp_search(
     # searched first, so that its designs tighten the threshold for the others.
     relaxed: list[tuple[float, Columns, RelaxedBound]] = []
     subs: list[SubProblem] = []
-    for cheap, columns in programs:
+    for cheap, columns, hint in programs:
         if not open_bound(cheap):
             continue
         if timed_out or out_of_time():
             timed_out = True
             unexplored.append(cheap)
             continue
-        bound = relax(columns)
+        bound = relax(columns, row_hint=hint, stop_above=threshold())
         columns.__dict__.pop("linear_program", None)  # arrays no longer needed: free them
         if not bound.feasible or not open_bound(bound.value):
             continue
@@ -228,7 +229,7 @@ def milp_search(
         # out of time before any design: a short look at the most promising program so
         # that the user gets the best design found with its gap rather than nothing
         pending = sorted(relaxed, key=lambda item: item[0]) or [
-            (quick, columns, None) for quick, columns in programs
+            (quick, columns, None) for quick, columns, _ in programs
         ]
         for _, columns, bound in pending[:3]:
             if bound is None:
