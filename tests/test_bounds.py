@@ -108,3 +108,31 @@ def test_row_groups_match_rowwise_unique():
     same_ours = ours[:, None] == ours[None, :]
     same_ref = reference[:, None] == reference[None, :]
     assert np.array_equal(same_ours, same_ref)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2, 4, 5])
+def test_programs_sharing_columns_equal_programs_built_alone(seed):
+    # Lending the joint program's columns and matrix must not change a die count's
+    # program; and its own duals give back its relaxation value (LP strong duality).
+    from optimizer.solver.milp import dual_bound
+
+    problem = parse_problem(random_problem(seed))
+    evaluator = Evaluator(problem)
+    contents = enumerate_contents(evaluator)
+    for g, packaging in enumerate(problem.packaging):
+        n_max = min(packaging.max_dies, problem.constraints.max_dies)
+        cset = build_candidates(evaluator, g, contents)
+        if n_max < 3 or len(cset) == 0:
+            continue
+        joint = build_columns(evaluator, cset, 2, n_max)
+        if joint is None:
+            continue
+        relax(joint)
+        for n in range(2, n_max + 1):
+            shared = build_columns(evaluator, cset, n, span=n_max, like=joint)
+            alone = build_columns(evaluator, cset, n, span=n_max)
+            a, b = relax(shared), relax(alone)
+            assert a.feasible == b.feasible
+            if a.feasible:
+                assert a.value == pytest.approx(b.value, rel=1e-9)
+                assert dual_bound(alone, b.row_dual) == pytest.approx(b.value, rel=1e-9)

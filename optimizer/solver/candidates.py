@@ -98,7 +98,7 @@ def _variants(evaluator: Evaluator, contents: np.ndarray, packaging) -> tuple[Di
         k: []
         for k in (
             "process",
-            "instances",
+            "content",
             "spares",
             "repairs",
             "level",
@@ -127,7 +127,7 @@ def _variants(evaluator: Evaluator, contents: np.ndarray, packaging) -> tuple[Di
                 for sigma, overhead in process.margin_options():
                     for k, (sens, crit_overhead) in enumerate(critical):
                         parts["process"].append(np.full(m, p, dtype=np.int64))
-                        parts["instances"].append(contents[valid])
+                        parts["content"].append(np.flatnonzero(valid))
                         parts["spares"].append(spare[valid])
                         parts["repairs"].append(repair[valid])
                         parts["level"].append(np.full(m, level, dtype=np.int64))
@@ -143,12 +143,14 @@ def _variants(evaluator: Evaluator, contents: np.ndarray, packaging) -> tuple[Di
                         ):
                             parts[key].append(np.full(m, value, dtype=float))
     arr = {k: np.concatenate(v) for k, v in parts.items()}
+    content = arr["content"]
     batch = DieBatch(
         process=arr["process"],
-        instances=arr["instances"],
+        instances=contents[content],
         spares=arr["spares"],
         repairs=arr["repairs"],
-        interface_area_mm2=evaluator.interface_area_mm2(arr["instances"], packaging),
+        # a die's interface area depends on its content only
+        interface_area_mm2=evaluator.interface_area_mm2(contents, packaging)[content],
         defect_density_per_cm2=arr["density"],
         wafer_cost_adder=arr["adder"],
         improvement_one_time=arr["one_time"],

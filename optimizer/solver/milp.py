@@ -100,34 +100,51 @@ def carrier_underestimator(
     return slopes, intercepts
 
 
-@dataclass
-class Columns:
-    """The lower-bounding program of one (packaging, die count) pair, as arrays."""
+@dataclass(frozen=True)
+class ColumnShape:
+    """What programs of one packaging and span share: columns, coverage, carrier rows."""
 
-    packaging_index: int
-    n_dies: int  # die count; with n_dies_max above it, the fewest of a range of counts
     col_c: np.ndarray  # candidate of each column
     col_k: np.ndarray  # copies of each column
-    cost: np.ndarray  # objective coefficient of each column
-    constant: float
     cover: sp.csr_matrix  # (B, cols): block instances covered
-    cover_rhs: np.ndarray
     once_groups: np.ndarray  # group id per column (candidate), for sum_k w_ck <= 1
     area: np.ndarray | None = None  # total-area coefficient per column (interposer)
     area_cap: float = math.inf
     carrier_slopes: np.ndarray | None = None
     carrier_intercepts: np.ndarray | None = None
-    carrier_factor: float = 0.0
     # defect-density targets: column -> (process, target) group, or -1 for processes
     # without a curve; per group its process, target index and one-time cost
     target_group: np.ndarray | None = None
     group_process: np.ndarray | None = None
     group_level: np.ndarray | None = None
     group_cost: np.ndarray | None = None
+
+
+_SHARED = tuple(f for f in ColumnShape.__dataclass_fields__)
+
+
+@dataclass
+class Columns:
+    """The lower-bounding program of one (packaging, die count) pair, as arrays."""
+
+    packaging_index: int
+    n_dies: int  # die count; with n_dies_max above it, the fewest of a range of counts
+    shape: ColumnShape
+    cost: np.ndarray  # objective coefficient of each column
+    constant: float
+    cover_rhs: np.ndarray
+    carrier_factor: float = 0.0
     n_dies_max: int = 0  # 0: exactly n_dies
     # die count the columns and carrier rows are built for; programs of one packaging
     # built for one span share rows and columns (columns above their count unusable)
     span: int = 0
+    like: Columns | None = field(default=None, repr=False)  # lends its constraint matrix
+
+    def __getattr__(self, name: str):
+        # the shared arrays read as the program's own (columns.col_c, columns.cover, ...)
+        if name in _SHARED:
+            return getattr(self.shape, name)
+        raise AttributeError(name)
 
     @property
     def die_counts(self) -> tuple[int, int]:
@@ -175,6 +192,7 @@ def build_columns(
     n_dies: int,
     n_dies_max: int | None = None,
     span: int | None = None,
+    like: Columns | None = None,
 ) -> Columns | None:
     """Arrays of the lower-bounding program for one packaging option and die count.
 
@@ -187,6 +205,8 @@ def build_columns(
     With ``span`` the columns (up to ``span`` copies) and the carrier under-estimator are
     those of ``span`` dies, so that programs of one packaging line up row by row and
     column by column and one program's duals give a bound of another (`dual_bound`).
+    ``like``, a program of the same candidates and span, lends its columns, rows and
+    constraint matrix, so that only the objective is computed again.
     """
     n_most = n_dies if n_dies_max is None else max(n_dies, n_dies_max)
     span = max(n_most, span or 0)
@@ -201,6 +221,56 @@ def build_columns(
     cand = np.flatnonzero(usable)
     if cand.size == 0:
         return None
+    blocks = evaluator.blocks
+    unit_min = (blocks.area_mm2 * blocks.scale).min(axis=0)
+    area_lo = float(count @ unit_min)
+    if like is not None and like.span == span and like.packaging_index == g:
+        shape = like.shape
+    else:
+        shape = _column_shape(evaluator, candidates, cand, span, area_lo)
+        if shape is None:
+            return None
+    col_c, col_k = shape.col_c, shape.col_k
+    market = problem.market
+    factor = market.volume / (
+        packaging.carrier_yield * packaging.package_yield * packaging.bond_yield**n_dies
+    )
+    fixed = (
+        n_dies * packaging.bond_cost_per_die + packaging.package_cost + packaging.final_test_cost
+    )
+    if shape.carrier_slopes is not None:
+        carrier_floor = float((shape.carrier_slopes * area_lo + shape.carrier_intercepts).max())
+    else:
+        carrier_floor = packaging.carrier_cost
+    k_c = prices.cost_per_passed_die[col_c]
+    ell = prices.log1m_defect_level[col_c]
+    n_lo = n_dies * float(prices.cost_per_passed_die[cand].min()) + fixed + carrier_floor
+    cost = factor * col_k * (k_c - n_lo * ell) + prices.nre[col_c]
+    constant = factor * fixed + packaging.design_cost
+    if shape.carrier_slopes is None:
+        constant += factor * packaging.carrier_cost
+    return Columns(
+        packaging_index=g,
+        n_dies=n_dies,
+        shape=shape,
+        cost=cost,
+        constant=constant,
+        cover_rhs=count.astype(float),
+        carrier_factor=factor,
+        n_dies_max=n_most if n_most > n_dies else 0,
+        span=span,
+        like=like if like is not None and like.shape is shape else None,
+    )
+
+
+def _column_shape(
+    evaluator: Evaluator, candidates: CandidateSet, cand: np.ndarray, span: int, area_lo: float
+) -> ColumnShape | None:
+    """Columns, coverage and carrier rows for up to ``span`` copies of candidates ``cand``."""
+    problem = evaluator.problem
+    packaging = problem.packaging[candidates.packaging_index]
+    prices = candidates.prices
+    count = evaluator.blocks.count
     reps = np.minimum(candidates.max_copies[cand], span)
     col_c = np.repeat(cand, reps)
     starts = np.cumsum(reps) - reps
@@ -209,17 +279,6 @@ def build_columns(
     inst = candidates.instances[col_c]
     fits = np.all(inst * col_k[:, None] <= count[None, :], axis=1)
     col_c, col_k, inst = col_c[fits], col_k[fits], inst[fits]
-    market = problem.market
-    factor = market.volume / (
-        packaging.carrier_yield * packaging.package_yield * packaging.bond_yield**n_dies
-    )
-    fixed = (
-        n_dies * packaging.bond_cost_per_die + packaging.package_cost + packaging.final_test_cost
-    )
-    blocks = evaluator.blocks
-    unit_min = (blocks.area_mm2 * blocks.scale).min(axis=0)
-    area_lo = float(count @ unit_min)
-    columns_area = col_k * prices.area_mm2[col_c]
     slopes = intercepts = None
     area_cap = math.inf
     if packaging.kind == "silicon_interposer":
@@ -230,40 +289,21 @@ def build_columns(
         if area_hi < area_lo:
             return None
         slopes, intercepts = carrier_underestimator(evaluator, packaging, area_lo, area_hi)
-        carrier_floor = float((slopes * area_lo + intercepts).max())
-    else:
-        carrier_floor = packaging.carrier_cost
-    k_c = prices.cost_per_passed_die[col_c]
-    ell = prices.log1m_defect_level[col_c]
-    n_lo = n_dies * float(prices.cost_per_passed_die[cand].min()) + fixed + carrier_floor
-    cost = factor * col_k * (k_c - n_lo * ell) + prices.nre[col_c]
-    constant = factor * fixed + packaging.design_cost
-    if slopes is None:
-        constant += factor * packaging.carrier_cost
-    groups = _target_groups(problem, candidates, col_c)
     rows, cols = np.nonzero(inst.T)
     cover = sp.csr_matrix(
         ((col_k[cols] * inst[cols, rows]).astype(float), (rows, cols)),
-        shape=(blocks.n_blocks, col_c.size),
+        shape=(evaluator.blocks.n_blocks, col_c.size),
     )
-    return Columns(
-        packaging_index=g,
-        n_dies=n_dies,
+    return ColumnShape(
         col_c=col_c,
         col_k=col_k,
-        cost=cost,
-        constant=constant,
         cover=cover,
-        cover_rhs=count.astype(float),
         once_groups=col_c,
-        area=columns_area if slopes is not None else None,
+        area=col_k * prices.area_mm2[col_c] if slopes is not None else None,
         area_cap=area_cap,
         carrier_slopes=slopes,
         carrier_intercepts=intercepts,
-        carrier_factor=factor,
-        n_dies_max=n_most if n_most > n_dies else 0,
-        span=span,
-        **groups,
+        **_target_groups(problem, candidates, col_c),
     )
 
 
@@ -366,6 +406,23 @@ def _linear_program(columns: Columns) -> _LinearProgram:
     interposer = columns.carrier_slopes is not None
     n_y = columns.n_targets
     fewest, most = columns.die_counts
+    like = columns.like
+    if like is not None and n_y == 0:
+        # the same rows and columns: only the die-count row, bounds and costs differ
+        lent = like.linear_program
+        count_row = columns.cover.shape[0]
+        row_lower = lent.row_lower.copy()
+        row_upper = lent.row_upper.copy()
+        row_lower[count_row], row_upper[count_row] = fewest, most
+        return _LinearProgram(
+            matrix=lent.matrix,
+            row_lower=row_lower,
+            row_upper=row_upper,
+            col_lower=lent.col_lower,
+            col_upper=np.r_[columns.usable.astype(float), [np.inf] if interposer else []],
+            cost=np.r_[columns.cost, [columns.carrier_factor] if interposer else []],
+            constant=columns.constant,
+        )
     blocks = [columns.cover, sp.csr_matrix(columns.col_k.astype(float)[None, :])]
     lower = [columns.cover_rhs, np.array([fewest], dtype=float)]
     upper = [columns.cover_rhs, np.array([most], dtype=float)]
@@ -492,7 +549,7 @@ def relax(
             if missing.size == 0:
                 return RelaxedBound(math.inf, np.zeros(n), np.ones(n, dtype=bool), False)
             # restricted program infeasible: widen it (cheapest shares first)
-            more = _by_share(columns, missing)[: max(_ADD_COLUMNS, 4 * len(order))]
+            more = _by_share(columns, missing, max(_ADD_COLUMNS, 4 * len(order)))
             _add_columns(h, program, more)
             in_program[more] = True
             order += more.tolist()
@@ -504,7 +561,7 @@ def relax(
         pricing = np.flatnonzero(~in_program[:n] & columns.usable & (reduced_all[:n] < 0))
         if pricing.size == 0 or value >= stop_above:
             break
-        best = pricing[np.argsort(reduced_all[pricing], kind="stable")[:_ADD_COLUMNS]]
+        best = pricing[_cheapest(reduced_all[pricing], _ADD_COLUMNS)]
         _add_columns(h, program, best)
         in_program[best] = True
         order += best.tolist()
@@ -514,10 +571,18 @@ def relax(
     return RelaxedBound(float(value), reduced_all[:n], x[:n] < 1e-9, True, row_dual)
 
 
-def _by_share(columns: Columns, cols: np.ndarray) -> np.ndarray:
-    """``cols`` ordered by cost per block instance covered, cheapest first."""
+def _cheapest(values: np.ndarray, k: int) -> np.ndarray:
+    """Indices of the ``k`` smallest ``values``, in increasing order."""
+    if k < values.size:
+        part = np.argpartition(values, k)[:k]
+        return part[np.argsort(values[part], kind="stable")]
+    return np.argsort(values, kind="stable")
+
+
+def _by_share(columns: Columns, cols: np.ndarray, k: int) -> np.ndarray:
+    """The ``k`` of ``cols`` with the least cost per block instance covered."""
     instances = np.asarray(columns.cover[:, cols].sum(axis=0)).ravel()
-    return cols[np.argsort(columns.cost[cols] / instances, kind="stable")]
+    return cols[_cheapest(columns.cost[cols] / instances, k)]
 
 
 def _first_columns(
@@ -526,16 +591,16 @@ def _first_columns(
     """Columns to start column generation with."""
     if row_hint is not None and row_hint.shape == program.row_lower.shape:
         reduced = program.cost[usable] - program.matrix[:, usable].T @ row_hint
-        first = usable[np.argsort(reduced, kind="stable")[:_FIRST_COLUMNS]]
+        first = usable[_cheapest(reduced, _FIRST_COLUMNS)]
     else:
-        first = _by_share(columns, usable)[:_FIRST_COLUMNS]
+        first = _by_share(columns, usable, _FIRST_COLUMNS)
     # and for every block the columns that cover it most cheaply, so that it can be covered
     cover = columns.cover[:, usable].tocsr()
     share = columns.cost[usable] / np.asarray(cover.sum(axis=0)).ravel()
     per_block = []
     for b in range(cover.shape[0]):
         idx = cover.indices[cover.indptr[b] : cover.indptr[b + 1]]
-        per_block.append(idx[np.argsort(share[idx], kind="stable")[:50]])
+        per_block.append(idx[_cheapest(share[idx], 50)])
     return np.union1d(first, usable[np.concatenate(per_block)])
 
 

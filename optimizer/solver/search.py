@@ -146,7 +146,7 @@ def milp_search(
         if n_max < 2 or len(candidates[g]) == 0:
             continue
         n_programs += n_max - 1
-        joint_bound = None
+        joint_bound = joint = None
         if n_max > 2:
             joint = build_columns(evaluator, candidates[g], 2, n_max)
             if joint is None or not open_bound(joint.quick_bound()):
@@ -157,9 +157,8 @@ def milp_search(
                 if not joint_bound.feasible or not open_bound(joint_bound.value):
                     log.append(f"packaging {packaging.name}: 2 to {n_max} dies closed together")
                     continue
-            del joint
         for n in range(2, n_max + 1):
-            columns = build_columns(evaluator, candidates[g], n, span=n_max)
+            columns = build_columns(evaluator, candidates[g], n, span=n_max, like=joint)
             if columns is None:
                 continue
             cheap = columns.quick_bound()
