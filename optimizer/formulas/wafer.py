@@ -32,7 +32,7 @@ __all__ = [
 
 # Estimated inner-loop steps (candidate offsets x rows) above which new footprints are
 # counted on several threads; below it, starting threads costs more than it saves.
-_PARALLEL_MIN_STEPS = 2e7
+_PARALLEL_MIN_STEPS = 2e6
 
 # Footprints are rounded to this grid before caching so that equal footprints computed
 # along different arithmetic paths share one entry.

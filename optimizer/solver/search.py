@@ -189,13 +189,22 @@ def milp_search(
             continue
         value = bound.value
         relaxed.append((value, columns, bound))
-        # a small program over the least-reduced-cost columns tightens the threshold first,
-        # so that the screen below drops as many columns as possible
         usable = columns.usable
+
+        def screened(usable=usable, bound=bound) -> np.ndarray:
+            # columns at zero whose reduced cost lifts the bound above the threshold can
+            # be in no selection that ranks
+            limit = threshold() * (1 + REL_TOL) + 1e-6
+            lifted = bound.value + bound.reduced_cost > limit
+            return np.flatnonzero(usable & ~(bound.at_zero & lifted))
+
+        # unless the screen already leaves a small program, a small program over the
+        # least-reduced-cost columns tightens the threshold first, so that the screen
+        # drops as many columns as possible
         order = np.argsort(np.where(usable, bound.reduced_cost, np.inf), kind="stable")
         few = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
         few = few[usable[few]]
-        if few.size < usable.sum():
+        if screened().size > screen_columns and few.size < usable.sum():
             scout = build_subproblem(columns, few)
             for _ in range(top):
                 solve_round(scout, remaining())
@@ -203,9 +212,7 @@ def milp_search(
                 if scout.current is None or out_of_time():
                     break
                 cut_current(scout)
-        limit = threshold() * (1 + REL_TOL) + 1e-6
-        keep = np.flatnonzero(usable & ~(bound.at_zero & (value + bound.reduced_cost > limit)))
-        sub = build_subproblem(columns, keep)
+        sub = build_subproblem(columns, screened())
         sub.bound = value
         sub.log.append(f"relaxation {value:.8g}; {sub.keep.size} of {columns.n_cols} columns kept")
         subs.append(sub)
