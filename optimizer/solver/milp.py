@@ -482,15 +482,16 @@ _FIRST_COLUMNS = 4_000
 _ADD_COLUMNS = 4_000
 
 
-def _solver_for(program: _LinearProgram, cols: np.ndarray) -> highspy.Highs:
-    """A HiGHS instance holding the relaxation restricted to the variables ``cols``."""
+def _solver_for(program: _LinearProgram, cols: np.ndarray, scale: float) -> highspy.Highs:
+    """A HiGHS instance holding the relaxation restricted to the variables ``cols``, its
+    costs divided by ``scale`` (costs near one keep HiGHS's tolerances meaningful)."""
     a = program.matrix[:, cols]
     h = highspy.Highs()
     h.setOptionValue("output_flag", False)
     lp = highspy.HighsLp()
     lp.num_col_ = a.shape[1]
     lp.num_row_ = a.shape[0]
-    lp.col_cost_ = program.cost[cols]
+    lp.col_cost_ = program.cost[cols] / scale
     lp.col_lower_ = program.col_lower[cols]
     lp.col_upper_ = program.col_upper[cols]
     lp.row_lower_ = program.row_lower
@@ -503,11 +504,12 @@ def _solver_for(program: _LinearProgram, cols: np.ndarray) -> highspy.Highs:
     return h
 
 
-def _add_columns(h: highspy.Highs, program: _LinearProgram, cols: np.ndarray) -> None:
+def _add_columns(h: highspy.Highs, program: _LinearProgram, cols: np.ndarray, scale: float):
+    """Append the program's variables ``cols`` to the HiGHS instance."""
     a = program.matrix[:, cols]
     h.addCols(
         int(cols.size),
-        program.cost[cols],
+        program.cost[cols] / scale,
         program.col_lower[cols],
         program.col_upper[cols],
         int(a.nnz),
@@ -518,56 +520,89 @@ def _add_columns(h: highspy.Highs, program: _LinearProgram, cols: np.ndarray) ->
 
 
 def relax(
-    columns: Columns, row_hint: np.ndarray | None = None, stop_above: float = math.inf
+    columns: Columns,
+    row_hint: np.ndarray | None = None,
+    stop_above: float = math.inf,
+    deadline: float | None = None,
 ) -> RelaxedBound:
     """Solve the linear relaxation with HiGHS directly on the arrays.
 
     Large programs are solved by column generation: a restricted program over the most
     promising columns (least reduced cost under ``row_hint``, duals of a program with the
     same rows, else least cost per block instance), then the columns whose reduced cost
-    under its duals is negative are added until there are none. The value returned is
-    the Lagrangian bound of those duals over all columns (`dual_bound`), a valid bound
-    at any stage, so the generation stops early once it reaches ``stop_above``.
+    under its duals is negative are added until there are none. Artificial columns of
+    prohibitive cost keep the restricted program feasible. The value returned is the
+    Lagrangian bound of the duals over all columns (`dual_bound`), valid at any stage, so
+    the generation may stop early: once it reaches ``stop_above``, or at ``deadline``
+    (a `time.perf_counter` instant).
     """
     n = columns.n_cols
     program = columns.linear_program
     n_var = program.cost.size
     extra = np.arange(n, n_var)  # target and carrier variables stay in every program
     usable = np.flatnonzero(columns.usable)
-    if usable.size <= _GENERATE_ABOVE:
-        chosen = np.r_[usable, extra]
-    else:
+    generate = usable.size > _GENERATE_ABOVE
+    if generate:
         chosen = np.r_[_first_columns(columns, program, usable, row_hint), extra]
+    else:
+        chosen = np.r_[usable, extra]
     in_program = np.zeros(n_var, dtype=bool)
     in_program[chosen] = True
-    h = _solver_for(program, chosen)
+    scale = max(1.0, float(np.median(np.abs(program.cost[usable])))) if usable.size else 1.0
+    h = _solver_for(program, chosen, scale)
     order = chosen.tolist()
+    if generate:
+        # one artificial per coverage row and the die-count row, dearer than any design
+        rows = columns.cover.shape[0] + 1
+        big = 100.0 * float(np.abs(program.cost).max() + 1.0) / scale
+        h.addCols(
+            rows,
+            np.full(rows, big),
+            np.zeros(rows),
+            np.full(rows, np.inf),
+            rows,
+            np.arange(rows, dtype=np.int32),
+            np.arange(rows, dtype=np.int32),
+            np.ones(rows),
+        )
+        order += [-1] * rows
+    found: tuple | None = None
     while True:
+        if deadline is not None:
+            h.setOptionValue("time_limit", max(deadline - time.perf_counter(), 0.01))
         h.run()
-        if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
-            missing = usable[~in_program[usable]]
-            if missing.size == 0:
-                return RelaxedBound(math.inf, np.zeros(n), np.ones(n, dtype=bool), False)
-            # restricted program infeasible: widen it (cheapest shares first)
-            more = _by_share(columns, missing, max(_ADD_COLUMNS, 4 * len(order)))
-            _add_columns(h, program, more)
-            in_program[more] = True
-            order += more.tolist()
-            continue
+        status = h.getModelStatus()
+        if status != highspy.HighsModelStatus.kOptimal:
+            if status == highspy.HighsModelStatus.kTimeLimit:
+                break
+            return RelaxedBound(math.inf, np.zeros(n), np.ones(n, dtype=bool), False)
         solution = h.getSolution()
-        row_dual = np.asarray(solution.row_dual, dtype=float)
+        row_dual = np.asarray(solution.row_dual, dtype=float) * scale
         reduced_all = program.cost - program.matrix.T @ row_dual
         value = _lagrangian(program, row_dual, reduced_all)
-        pricing = np.flatnonzero(~in_program[:n] & columns.usable & (reduced_all[:n] < 0))
-        if pricing.size == 0 or value >= stop_above:
+        col_value = np.asarray(solution.col_value)
+        found = (value, row_dual, reduced_all, col_value)
+        if value >= stop_above or (deadline is not None and time.perf_counter() >= deadline):
             break
+        pricing = np.flatnonzero(~in_program[:n] & columns.usable & (reduced_all[:n] < 0))
+        if pricing.size == 0:
+            artificial = col_value[np.asarray(order) < 0]
+            if artificial.size == 0 or artificial.max() <= 1e-9:
+                break
+            missing = usable[~in_program[usable]]
+            if missing.size == 0:  # every column present and still no cover: infeasible
+                return RelaxedBound(math.inf, np.zeros(n), np.ones(n, dtype=bool), False)
+            pricing = missing
         best = pricing[_cheapest(reduced_all[pricing], _ADD_COLUMNS)]
-        _add_columns(h, program, best)
+        _add_columns(h, program, best, scale)
         in_program[best] = True
         order += best.tolist()
+    if found is None:  # out of time before a first solution: no bound yet
+        return RelaxedBound(-math.inf, np.zeros(n), np.ones(n, dtype=bool), True)
+    value, row_dual, reduced_all, col_value = found
     x = np.zeros(n_var)
-    x[np.asarray(order)] = np.asarray(solution.col_value)
-    value = min(value, h.getInfo().objective_function_value + program.constant)
+    real = np.asarray(order[: col_value.size]) >= 0
+    x[np.asarray(order[: col_value.size])[real]] = col_value[real]
     return RelaxedBound(float(value), reduced_all[:n], x[:n] < 1e-9, True, row_dual)
 
 
@@ -594,13 +629,19 @@ def _first_columns(
         first = usable[_cheapest(reduced, _FIRST_COLUMNS)]
     else:
         first = _by_share(columns, usable, _FIRST_COLUMNS)
-    # and for every block the columns that cover it most cheaply, so that it can be covered
+    # and for every block the columns that cover it most cheaply, among all columns and
+    # among those large enough that the die-count limit can be met with them, so that
+    # the restricted program is feasible from the start
     cover = columns.cover[:, usable].tocsr()
-    share = columns.cost[usable] / np.asarray(cover.sum(axis=0)).ravel()
+    held = np.asarray(cover.sum(axis=0)).ravel()
+    share = columns.cost[usable] / held
+    large_enough = held >= columns.cover_rhs.sum() / columns.die_counts[1] - 1e-9
     per_block = []
     for b in range(cover.shape[0]):
         idx = cover.indices[cover.indptr[b] : cover.indptr[b + 1]]
         per_block.append(idx[_cheapest(share[idx], 50)])
+        large = idx[large_enough[idx]]
+        per_block.append(large[_cheapest(share[large], 50)])
     return np.union1d(first, usable[np.concatenate(per_block)])
 
 

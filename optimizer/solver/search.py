@@ -112,6 +112,8 @@ def milp_search(
         # infinite for an invalid product (carrier too large, clashing targets)
         exact[sel] = float(revenue - prices.profit[0])
 
+    deadline = None if time_limit is None else start + time_limit
+
     def remaining() -> float | None:
         return None if time_limit is None else time_limit - (time.perf_counter() - start)
 
@@ -153,7 +155,7 @@ def milp_search(
                 continue
             # out of time, the die counts are listed below and left unexplored
             if not out_of_time():
-                joint_bound = relax(joint, stop_above=threshold())
+                joint_bound = relax(joint, stop_above=threshold(), deadline=deadline)
                 if not joint_bound.feasible or not open_bound(joint_bound.value):
                     log.append(f"packaging {packaging.name}: 2 to {n_max} dies closed together")
                     continue
@@ -183,7 +185,7 @@ def milp_search(
             timed_out = True
             unexplored.append(cheap)
             continue
-        bound = relax(columns, row_hint=hint, stop_above=threshold())
+        bound = relax(columns, row_hint=hint, stop_above=threshold(), deadline=deadline)
         columns.__dict__.pop("linear_program", None)  # arrays no longer needed: free them
         if not bound.feasible or not open_bound(bound.value):
             continue
