@@ -17,6 +17,7 @@ import time
 
 os.environ.setdefault("OMP_NUM_THREADS", "1")
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+os.environ.setdefault("DIEPLAN_COUNT_WORKERS", "1")  # exact counts on one thread too
 
 import numpy as np  # noqa: E402
 

@@ -238,26 +238,39 @@ def compare(
 
     def show() -> None:
         view = Table(title=f"Winners side by side ({currency})", title_justify="left")
-        for col in ("option", "design kind", "cost/good unit", "profit", "vs best",
-                    "die yields", "package yield", "NRE"):
-            view.add_column(col, justify="left" if col in ("option", "design kind",
-                                                            "die yields") else "right")
+        for col in (
+            "option",
+            "design kind",
+            "cost/good unit",
+            "profit",
+            "vs best",
+            "die yields",
+            "package yield",
+            "NRE",
+        ):
+            view.add_column(
+                col, justify="left" if col in ("option", "design kind", "die yields") else "right"
+            )
         for row in table.itertuples():
             if not math.isfinite(row.profit):
-                view.add_row(escape(str(row.option)), escape(row.design_kind),
-                             *["-"] * 6)
+                view.add_row(escape(str(row.option)), escape(row.design_kind), *["-"] * 6)
                 continue
             view.add_row(
-                escape(str(row.option)), escape(row.design_kind),
-                f"{row.cost_per_good_unit:,.2f}", money(row.profit), money(row.profit_vs_best),
+                escape(str(row.option)),
+                escape(row.design_kind),
+                f"{row.cost_per_good_unit:,.2f}",
+                money(row.profit),
+                money(row.profit_vs_best),
                 escape(row.die_yields),
-                f"{100 * row.package_yield:.2f}%", money(row.nre),
+                f"{100 * row.package_yield:.2f}%",
+                money(row.nre),
             )
         console.print(view)
         for row in table.itertuples():
             if isinstance(row.differences_explained, str):
-                console.print(f"[bold]{escape(str(row.option))}[/bold]: "
-                              f"{escape(row.differences_explained)}")
+                console.print(
+                    f"[bold]{escape(str(row.option))}[/bold]: {escape(row.differences_explained)}"
+                )
             if row.notes:
                 console.print(f"  note: {escape(row.notes)}", style="dim")
 
@@ -319,22 +332,36 @@ def sweep(
     try:
         axes = [make_axis(vary[0], vary[1], vary[2], steps, log, "--vary", "--steps")]
         if vary2 is not None:
-            axes.append(make_axis(vary2[0], vary2[1], vary2[2], steps2, log2, "--vary2",
-                                  "--steps2"))
+            axes.append(
+                make_axis(vary2[0], vary2[1], vary2[2], steps2, log2, "--vary2", "--steps2")
+            )
         study = load_study(problem_path)
         runner = _runner(workers, scheduler)
         with _progress(console, not as_json) as (stage, advance):
-            result = run_sweep(study, axes, runner=runner, time_limit=time_limit,
-                               refine=refine, progress=advance, stage=stage,
-                               every_point=every_point)
+            result = run_sweep(
+                study,
+                axes,
+                runner=runner,
+                time_limit=time_limit,
+                refine=refine,
+                progress=advance,
+                stage=stage,
+                every_point=every_point,
+            )
     except ProblemError as error:
         fail(error)
     currency = study.problem.market.currency
     options = {
         "problem": str(problem_path),
         "axes": [
-            {"path": a.path.text, "unit": a.path.unit_text, "low": a.low, "high": a.high,
-             "steps": a.steps, "log": a.log}
+            {
+                "path": a.path.text,
+                "unit": a.path.unit_text,
+                "low": a.low,
+                "high": a.high,
+                "steps": a.steps,
+                "log": a.log,
+            }
             for a in result.axes
         ],
         "refine": refine,
@@ -376,17 +403,19 @@ def sweep(
             else f"{result.solves} solves"
             + (", candidate dies shared" if result.shared_candidates else "")
         )
-        console.print(escape(
-            f"{len(result.points)} scenarios over {axis_names} on {runner.description} "
-            f"({how})"
-        ))
+        console.print(
+            escape(
+                f"{len(result.points)} scenarios over {axis_names} on {runner.description} ({how})"
+            )
+        )
         kinds = Table(title="Winning designs", title_justify="left")
         for col in ("id", "design kind", "wins", "design"):
             kinds.add_column(col, justify="right" if col == "wins" else "left")
         wins = result.points["design_id"].value_counts()
         for key, design in result.designs.items():
-            kinds.add_row(key, escape(design.kind), str(int(wins.get(key, 0))),
-                          escape(design.summary))
+            kinds.add_row(
+                key, escape(design.kind), str(int(wins.get(key, 0))), escape(design.summary)
+            )
         console.print(kinds)
         if result.crossovers.empty:
             console.print("no crossover: one design kind wins over the whole range")
@@ -395,12 +424,22 @@ def sweep(
         for col in ("axis", "at", "from", "to", "crossing", "profit there", "how"):
             view.add_column(col)
         for row in result.crossovers.itertuples():
-            where = f"{row.crossing:.6g}" if math.isfinite(row.crossing) else (
-                f"{row.grid_low:.6g} .. {row.grid_high:.6g}")
-            view.add_row(escape(row.axis), escape(row.at), escape(row.kind_before),
-                         escape(row.kind_after), where,
-                         money(row.profit_at_crossing, currency)
-                         if math.isfinite(row.profit_at_crossing) else "-", row.method)
+            where = (
+                f"{row.crossing:.6g}"
+                if math.isfinite(row.crossing)
+                else (f"{row.grid_low:.6g} .. {row.grid_high:.6g}")
+            )
+            view.add_row(
+                escape(row.axis),
+                escape(row.at),
+                escape(row.kind_before),
+                escape(row.kind_after),
+                where,
+                money(row.profit_at_crossing, currency)
+                if math.isfinite(row.profit_at_crossing)
+                else "-",
+                row.method,
+            )
         console.print(view)
 
     _finish(console, as_json, payload, folder, show)
@@ -436,8 +475,7 @@ def sensitivity(
         all_ranges = ranges_from_study(study) + extra
         with _progress(console, not as_json) as (stage, advance):
             stage("re-pricing the winner", max(1, len(all_ranges)))
-            result = run_sensitivity(study, all_ranges, time_limit=time_limit,
-                                     progress=advance)
+            result = run_sensitivity(study, all_ranges, time_limit=time_limit, progress=advance)
     except ProblemError as error:
         fail(error)
     currency = study.problem.market.currency
@@ -445,8 +483,11 @@ def sensitivity(
     payload = {
         "command": "sensitivity",
         "options": options,
-        "winner": {"kind": result.design.kind, "design": result.design.summary,
-                   "profit": result.base_profit},
+        "winner": {
+            "kind": result.design.kind,
+            "design": result.design.summary,
+            "profit": result.base_profit,
+        },
         "sensitivity": _records(result.table),
     }
     folder = None
@@ -461,18 +502,21 @@ def sensitivity(
         folder = write_run_folder(results_dir, "sensitivity", problem_path.stem, files)
 
     def show() -> None:
-        console.print(
-            escape(f"winner (held fixed): {result.design.kind}: {result.design.summary}")
-        )
+        console.print(escape(f"winner (held fixed): {result.design.kind}: {result.design.summary}"))
         console.print(f"profit at the file's values: {money(result.base_profit, currency)}")
         view = Table(title="Profit change, largest swing first", title_justify="left")
         for col in ("input", "range", "at low", "at high", "swing", "note"):
             view.add_column(col, justify="left" if col in ("input", "note") else "right")
         for row in result.table.itertuples():
             unit = f" {row.unit}" if row.unit else ""
-            view.add_row(escape(row.input), escape(f"{row.low:.4g} .. {row.high:.4g}{unit}"),
-                         _signed(row.change_low), _signed(row.change_high),
-                         money(row.swing) if math.isfinite(row.swing) else "-", escape(row.note))
+            view.add_row(
+                escape(row.input),
+                escape(f"{row.low:.4g} .. {row.high:.4g}{unit}"),
+                _signed(row.change_low),
+                _signed(row.change_high),
+                money(row.swing) if math.isfinite(row.swing) else "-",
+                escape(row.note),
+            )
         console.print(view)
 
     _finish(console, as_json, payload, folder, show)
@@ -488,9 +532,7 @@ def _parse_range(text: str, make_range):
     path, sep, span = text.partition("=")
     low, sep2, high = span.partition(":")
     if not (sep and sep2 and path.strip() and low.strip() and high.strip()):
-        raise ProblemError(
-            "--range", text, "write PATH=LOW:HIGH, e.g. market.unit_price=1500:2300"
-        )
+        raise ProblemError("--range", text, "write PATH=LOW:HIGH, e.g. market.unit_price=1500:2300")
     return make_range(path.strip(), low.strip(), high.strip())
 
 
@@ -518,8 +560,16 @@ def uncertainty(
         study = load_study(problem_path)
         runner = _runner(workers, scheduler)
         with _progress(console, not as_json) as (stage, advance):
-            result = run_uncertainty(study, samples=samples, seed=seed, top=top, runner=runner,
-                                     time_limit=time_limit, progress=advance, stage=stage)
+            result = run_uncertainty(
+                study,
+                samples=samples,
+                seed=seed,
+                top=top,
+                runner=runner,
+                time_limit=time_limit,
+                progress=advance,
+                stage=stage,
+            )
     except ProblemError as error:
         fail(error)
     currency = study.problem.market.currency
@@ -558,19 +608,35 @@ def uncertainty(
             escape(f"{samples:,} samples (seed {seed}) of {names} on {runner.description}")
         )
         view = Table(title=f"Profit ({currency}) of the top designs", title_justify="left")
-        for col in ("rank", "design kind", "at file values", "P10", "P50", "P90",
-                    "P(most profitable)"):
+        for col in (
+            "rank",
+            "design kind",
+            "at file values",
+            "P10",
+            "P50",
+            "P90",
+            "P(most profitable)",
+        ):
             view.add_column(col, justify="left" if col == "design kind" else "right")
         for row in result.summary.itertuples():
-            view.add_row(str(row.rank), escape(row.design_kind), money(row.profit_at_file_values),
-                         money(row.p10), money(row.p50), money(row.p90),
-                         f"{100 * row.prob_best:.1f}%")
+            view.add_row(
+                str(row.rank),
+                escape(row.design_kind),
+                money(row.profit_at_file_values),
+                money(row.p10),
+                money(row.p50),
+                money(row.p90),
+                f"{100 * row.prob_best:.1f}%",
+            )
         console.print(view)
         for row in result.summary.itertuples():
             console.print(escape(f"rank {row.rank}: {row.design}"), style="dim")
         for row in result.summary.itertuples():
             if row.unbuildable_samples:
-                console.print(f"rank {row.rank} cannot be built in {row.unbuildable_samples} "
-                              "samples (left out of its percentiles)", style="dim")
+                console.print(
+                    f"rank {row.rank} cannot be built in {row.unbuildable_samples} "
+                    "samples (left out of its percentiles)",
+                    style="dim",
+                )
 
     _finish(console, as_json, payload, folder, show)

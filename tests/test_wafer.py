@@ -324,3 +324,29 @@ def test_counting_threads_give_the_same_counts(monkeypatch):
     inline = gross_dies_exact_many(147.0, sides[:, 0], sides[:, 1])
     wafer.clear_count_cache()
     assert np.array_equal(threaded, inline)
+
+
+@pytest.mark.parametrize(
+    ("radius", "side"), [(147.0, 10.08), (147.0, 23.7), (60.0, 3.2), (97.0, 7.77)]
+)
+def test_square_sites_shortcut_equals_every_touching_pair(radius, side):
+    # The search tries only half the touching pairs of square sites (diagonal mirror).
+    # Reference: every lattice vector (a, b) in all four quadrants and both roots, each
+    # evaluated by the row count, written out here without the symmetry argument.
+    from optimizer.formulas.grid_search import sites_at
+
+    n = int(2 * radius / side)
+    best = 0
+    for a in range(-n, n + 1):
+        for b in range(-n, n + 1):
+            vx, vy = a * side, b * side
+            length2 = vx * vx + vy * vy
+            if length2 == 0 or length2 > (2 * radius) ** 2:
+                continue
+            length = math.sqrt(length2)
+            half = math.sqrt(max(radius**2 - length2 / 4, 0.0))
+            for sign in (1.0, -1.0):
+                px = -vx / 2 - sign * vy / length * half
+                py = -vy / 2 + sign * vx / length * half
+                best = max(best, sites_at(px % side, py % side, radius, side, side))
+    assert gross_dies_exact(radius, side, side) == best

@@ -104,8 +104,10 @@ def restrict_processes(study: Study, keep: Sequence[str], option: str = "--proce
         else:
             designs.append(design)
     if dropped:
-        notes.append(f"explicit designs {dropped} dropped (they use a dropped option; "
-                     "the solve does not use them)")
+        notes.append(
+            f"explicit designs {dropped} dropped (they use a dropped option; "
+            "the solve does not use them)"
+        )
     if "design" in data:
         data["design"] = designs
     uncertain = []
@@ -192,11 +194,13 @@ def compare(
     for option in options:
         if option.label in failed:
             error = failed[option.label]
-            rows.append({
-                "option": option.label,
-                "design_kind": "no feasible design",
-                "notes": " | ".join([*option.notes, f"{error.field}: {error.message}"]),
-            })
+            rows.append(
+                {
+                    "option": option.label,
+                    "design_kind": "no feasible design",
+                    "notes": " | ".join([*option.notes, f"{error.field}: {error.message}"]),
+                }
+            )
             continue
         r = results[option.label]
         row = {

@@ -153,8 +153,13 @@ def _at_grid(study, axis, grid, solved, segments, runner) -> list:
     keys = list(designs)
     parts = chunks(len(grid), max(1, runner.workers) * 2)
     tasks = [
-        PriceTask(study.data, study.source, tuple(designs[k] for k in keys),
-                  (axis.path.text,), tuple((float(grid[i]),) for i in part))
+        PriceTask(
+            study.data,
+            study.source,
+            tuple(designs[k] for k in keys),
+            (axis.path.text,),
+            tuple((float(grid[i]),) for i in part),
+        )
         for part in parts
     ]
     priced = runner.map(price_scenarios, tasks)

@@ -72,12 +72,24 @@ def comparison_figure(comparison: Comparison, currency: str = "") -> Figure:
         values = table[f"cost_{component}"].to_numpy(dtype=float)
         if not np.any(np.abs(values) > 1e-12):
             continue
-        ax.bar(x, values, bottom=bottom, color=colors(i % 10),
-               label=COMPONENT_LABELS.get(component, component))
+        ax.bar(
+            x,
+            values,
+            bottom=bottom,
+            color=colors(i % 10),
+            label=COMPONENT_LABELS.get(component, component),
+        )
         bottom += values
     for xi, total in zip(x, table["cost_per_good_unit"], strict=True):
-        ax.annotate(f"{total:,.2f}", (xi, total), ha="center", va="bottom", fontsize=8,
-                    xytext=(0, 2), textcoords="offset points")
+        ax.annotate(
+            f"{total:,.2f}",
+            (xi, total),
+            ha="center",
+            va="bottom",
+            fontsize=8,
+            xytext=(0, 2),
+            textcoords="offset points",
+        )
     ax.set_xticks(x, [str(o) for o in table["option"]], rotation=15, ha="right")
     ax.set_ylabel(f"cost per good unit{f' ({currency})' if currency else ''}")
     ax.set_title("Winning design of each option: cost per good unit by component")
@@ -111,8 +123,16 @@ def sweep_figure(sweep: SweepResult, currency: str = "") -> Figure:
         where = row["crossing"] if math.isfinite(row["crossing"]) else row["grid_high"]
         for a in (ax, behind):
             a.axvline(where, color="0.3", ls="--", lw=0.9)
-        ax.annotate(f"{where:.4g}", (where, 1.0), xycoords=("data", "axes fraction"),
-                    rotation=90, va="top", ha="right", fontsize=8, color="0.3")
+        ax.annotate(
+            f"{where:.4g}",
+            (where, 1.0),
+            xycoords=("data", "axes fraction"),
+            rotation=90,
+            va="top",
+            ha="right",
+            fontsize=8,
+            color="0.3",
+        )
     if axis.log:
         ax.set_xscale("log")
     for a in (ax, behind):
@@ -153,8 +173,15 @@ def winner_map_figure(sweep: SweepResult) -> Figure:
     fig, ax = _figure(9.0, 5.6)
     colors = plt.get_cmap("tab10")
     cmap = ListedColormap([colors(i % 10) for i in range(len(kinds))])
-    ax.pcolormesh(_edges(xs, ax_x.log), _edges(ys, ax_y.log), grid, cmap=cmap,
-                  vmin=-0.5, vmax=len(kinds) - 0.5, shading="flat")
+    ax.pcolormesh(
+        _edges(xs, ax_x.log),
+        _edges(ys, ax_y.log),
+        grid,
+        cmap=cmap,
+        vmin=-0.5,
+        vmax=len(kinds) - 0.5,
+        shading="flat",
+    )
     if ax_x.log:
         ax.set_xscale("log")
     if ax_y.log:
@@ -224,8 +251,14 @@ def uncertainty_figure(result: Uncertainty, currency: str = "") -> Figure:
         label = f"rank {row['rank']}: {row['design_kind']} (best in {100 * row['prob_best']:.0f}%)"
         color = colors(k % 10)
         hist_ax.hist(values, bins=bins, histtype="step", color=color, lw=1.4, label=label)
-        cdf_ax.step(values, np.arange(1, values.size + 1) / values.size, where="post",
-                    color=color, lw=1.4, label=label)
+        cdf_ax.step(
+            values,
+            np.arange(1, values.size + 1) / values.size,
+            where="post",
+            color=color,
+            lw=1.4,
+            label=label,
+        )
         for q in ("p10", "p50", "p90"):
             cdf_ax.plot(row[q], int(q[1:]) / 100, "o", color=color, ms=4)
     for ax in (hist_ax, cdf_ax):
@@ -236,7 +269,8 @@ def uncertainty_figure(result: Uncertainty, currency: str = "") -> Figure:
     cdf_ax.set_yticks([0, 0.1, 0.5, 0.9, 1.0])
     cdf_ax.grid(alpha=0.3)
     hist_ax.legend(fontsize=7)
-    fig.suptitle(f"Profit over {len(result.samples):,} samples (seed {result.seed}); "
-                 "dots: P10, P50, P90")
+    fig.suptitle(
+        f"Profit over {len(result.samples):,} samples (seed {result.seed}); dots: P10, P50, P90"
+    )
     _footer(fig)
     return fig

@@ -44,8 +44,9 @@ class InputRange:
 def ranges_from_study(study: Study) -> list[InputRange]:
     """The sensitivity ranges of the file's ``[[uncertain]]`` entries, in file order."""
     out = []
-    for i, (entry, path) in enumerate(zip(study.problem.uncertain, study.uncertain_paths,
-                                          strict=True)):
+    for i, (entry, path) in enumerate(
+        zip(study.problem.uncertain, study.uncertain_paths, strict=True)
+    ):
         low, high = entry.range()
         out.append(InputRange(path, low, high, f"uncertain[{i}]"))
     return out
@@ -103,8 +104,9 @@ def run_sensitivity(
         seen[r.path.text] = r.origin
     for r in ranges:
         _check_ends(study, r)
-    solution = solve(study.problem, top=1, method=method, time_limit=time_limit,
-                     source=study.source)
+    solution = solve(
+        study.problem, top=1, method=method, time_limit=time_limit, source=study.source
+    )
     winner = solution.best
     design = FixedDesign.from_result(winner, study.problem)
     rows = []

@@ -328,8 +328,18 @@ def run_sweep(
     """
     runner = runner or Runner()
     with runner.session():
-        return _run_sweep(study, tuple(axes), runner, method, time_limit, refine, curves,
-                          progress, stage, every_point)
+        return _run_sweep(
+            study,
+            tuple(axes),
+            runner,
+            method,
+            time_limit,
+            refine,
+            curves,
+            progress,
+            stage,
+            every_point,
+        )
 
 
 def _run_sweep(
@@ -408,13 +418,23 @@ def _run_sweep(
     else:
         found = [Crossing(float("nan"), float("nan"), "grid") for _ in crossing_tasks]
     for row, crossing in zip(crossing_rows, found, strict=True):
-        row.update(crossing=crossing.value, profit_at_crossing=crossing.profit,
-                   method=crossing.method)
+        row.update(
+            crossing=crossing.value, profit_at_crossing=crossing.profit, method=crossing.method
+        )
     crossovers = pd.DataFrame(
         crossing_rows,
         columns=[
-            "axis", "at", "grid_low", "grid_high", "design_before", "design_after",
-            "kind_before", "kind_after", "crossing", "profit_at_crossing", "method",
+            "axis",
+            "at",
+            "grid_low",
+            "grid_high",
+            "design_before",
+            "design_after",
+            "kind_before",
+            "kind_after",
+            "crossing",
+            "profit_at_crossing",
+            "method",
         ],
     )
 
@@ -452,22 +472,37 @@ def _crossing_jobs(study, axes, grids, points, designs):
         )
         tasks.append(
             CrossingTask(
-                study.data, study.source, designs[before], designs[after], axis.path.text,
-                float(lo), float(hi), axis.log, axis.path.integer, fixed_paths, fixed_values,
+                study.data,
+                study.source,
+                designs[before],
+                designs[after],
+                axis.path.text,
+                float(lo),
+                float(hi),
+                axis.log,
+                axis.path.integer,
+                fixed_paths,
+                fixed_values,
             )
         )
 
     for j in range(ny):
         for i in range(nx - 1):
             if kinds[j, i] != kinds[j, i + 1]:
-                job(0, grids[0][i], grids[0][i + 1], ids[j, i], ids[j, i + 1],
-                    1 if len(axes) == 2 else None, grids[1][j] if len(axes) == 2 else None)
+                job(
+                    0,
+                    grids[0][i],
+                    grids[0][i + 1],
+                    ids[j, i],
+                    ids[j, i + 1],
+                    1 if len(axes) == 2 else None,
+                    grids[1][j] if len(axes) == 2 else None,
+                )
     if len(axes) == 2:
         for i in range(nx):
             for j in range(ny - 1):
                 if kinds[j, i] != kinds[j + 1, i]:
-                    job(1, grids[1][j], grids[1][j + 1], ids[j, i], ids[j + 1, i], 0,
-                        grids[0][i])
+                    job(1, grids[1][j], grids[1][j + 1], ids[j, i], ids[j + 1, i], 0, grids[0][i])
     return rows, tasks
 
 
@@ -477,7 +512,10 @@ def _curves(study, axis, grid, designs, runner, progress, stage) -> pd.DataFrame
     parts = chunks(len(grid), max(1, runner.workers if not runner.scheduler else 8) * 2)
     tasks = [
         PriceTask(
-            study.data, study.source, fixed, (axis.path.text,),
+            study.data,
+            study.source,
+            fixed,
+            (axis.path.text,),
             tuple((float(grid[i]),) for i in part),
         )
         for part in parts

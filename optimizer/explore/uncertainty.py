@@ -32,8 +32,9 @@ from optimizer.problem import ProblemError, UncertainInput, parse_problem
 PERCENTILES = (10, 50, 90)
 
 
-def sample_inputs(entries: list[UncertainInput], paths: list[FieldPath], n: int,
-                  seed: int) -> np.ndarray:
+def sample_inputs(
+    entries: list[UncertainInput], paths: list[FieldPath], n: int, seed: int
+) -> np.ndarray:
     """Draw ``n`` samples of every input (columns in file order) from one seeded stream.
 
     Integer fields are rounded to the nearest whole number.
@@ -108,9 +109,7 @@ def summarise(profit: np.ndarray) -> pd.DataFrame:
         ok = np.isfinite(column)
         values = column[ok]
         have = values.size > 0
-        p10, p50, p90 = (
-            np.percentile(values, PERCENTILES) if have else (np.nan, np.nan, np.nan)
-        )
+        p10, p50, p90 = np.percentile(values, PERCENTILES) if have else (np.nan, np.nan, np.nan)
         rows.append(
             {
                 "mean": float(values.mean()) if have else np.nan,
@@ -144,7 +143,7 @@ def run_uncertainty(
             study.source,
             "uncertain",
             "the file has no [[uncertain]] inputs; add entries such as "
-            "{ path = \"market.volume\", distribution = \"lognormal\", median = 1e6, "
+            '{ path = "market.volume", distribution = "lognormal", median = 1e6, '
             "sigma_log = 0.3 } (see README, Exploration)",
         )
     if samples < 2:
@@ -152,8 +151,9 @@ def run_uncertainty(
     runner = runner or Runner()
     if stage:
         stage("solving at the file's values", 1)
-    solution = solve(study.problem, top=top, method=method, time_limit=time_limit,
-                     source=study.source)
+    solution = solve(
+        study.problem, top=top, method=method, time_limit=time_limit, source=study.source
+    )
     if progress:
         progress(1, 1)
     results = tuple(solution.designs)

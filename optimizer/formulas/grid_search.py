@@ -65,7 +65,8 @@ def best_offset(r, w, h):
     circle, ``v = (a w, b h)``, ``0 < |v| <= 2 r``: ``p = -v/2 + n sqrt(r^2 - |v|^2/4)``
     with ``n`` a unit normal of ``v``, reduced modulo the lattice. Only ``a, b >= 0`` and
     one root are needed: the mirror symmetries of circle and grid map the other touching
-    pairs onto these.
+    pairs onto these. Square sites add the diagonal mirror, which maps the pair of
+    ``(b, a)`` onto that of ``(a, b)``: then ``b <= a`` suffices.
     """
     if 2.0 * r < min(w, h):
         return 0, 0.0, 0.0
@@ -74,9 +75,10 @@ def best_offset(r, w, h):
     # Allow the rounding of |v| = 2r (two corners diametrically opposite).
     reach2 = (2.0 * r) * (2.0 * r) * (1.0 + 1e-12)
     best, best_x, best_y = 0, 0.0, 0.0
+    square = w == h
     for a in range(a_max + 1):
         vx = a * w
-        for b in range(b_max + 1):
+        for b in range(min(a, b_max) + 1 if square else b_max + 1):
             vy = b * h
             len2 = vx * vx + vy * vy
             if len2 <= 0.0 or len2 > reach2:

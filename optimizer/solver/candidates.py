@@ -113,8 +113,9 @@ def _variants(evaluator: Evaluator, contents: np.ndarray, packaging) -> tuple[Di
         )
     }
     for combo in combo_arr:
-        spare = np.zeros((c, b_count), dtype=np.int64)
-        repair = np.zeros((c, b_count), dtype=np.int64)
+        # narrow integers: these arrays have one row per variant, millions at 20 blocks
+        spare = np.zeros((c, b_count), dtype=np.int32)
+        repair = np.zeros((c, b_count), dtype=np.int32)
         valid = np.ones(c, dtype=bool)
         for (b, kind, _), value in zip(option_blocks, combo, strict=True):
             present = contents[:, b] > 0
@@ -146,7 +147,7 @@ def _variants(evaluator: Evaluator, contents: np.ndarray, packaging) -> tuple[Di
     content = arr["content"]
     batch = DieBatch(
         process=arr["process"],
-        instances=contents[content],
+        instances=contents.astype(np.int32)[content],
         spares=arr["spares"],
         repairs=arr["repairs"],
         # a die's interface area depends on its content only

@@ -8,10 +8,12 @@ cost per good unit is
     L(x) = sum_c x_c ln(1 - DL_c) <= 0,
 
 (k_c cost per passed die, DL_c its defect level, S the carrier cost per good one as a
-function of total die area). Because exp(-L) >= 1 - L and N >= N_lo,
-N exp(-L) >= N - N_lo L; S is replaced by a convex piecewise-linear under-estimator. The
-resulting linear objective is a valid lower bound of the total cost
-V x cost per good unit + NRE of every selection.
+function of total die area). Because exp(-L) >= 1 - L, N exp(-L) >= N + N (-L), and
+N (-L) = sum_c N (-ln(1 - DL_c)) x_c >= sum_c N_c (-ln(1 - DL_c)) x_c, where N_c is the
+least N of any selection holding column c: its own dies, the cheapest possible die for
+every other one, the fixed costs and the carrier's floor. S is replaced by a convex
+piecewise-linear under-estimator. The resulting linear objective is a valid lower bound
+of the total cost V x cost per good unit + NRE of every selection.
 
 Copies are one-hot, x_c = sum_k k w_ck with binary w_ck, so that z_c = sum_k w_ck
 carries the die's NRE once and a no-good cut on a selection is a single inequality.
@@ -244,7 +246,9 @@ def build_columns(
         carrier_floor = packaging.carrier_cost
     k_c = prices.cost_per_passed_die[col_c]
     ell = prices.log1m_defect_level[col_c]
-    n_lo = n_dies * float(prices.cost_per_passed_die[cand].min()) + fixed + carrier_floor
+    # N >= this column's own dies + the cheapest possible others + fixed + carrier floor
+    cheapest = float(prices.cost_per_passed_die[cand].min())
+    n_lo = col_k * k_c + np.maximum(n_dies - col_k, 0) * cheapest + fixed + carrier_floor
     cost = factor * col_k * (k_c - n_lo * ell) + prices.nre[col_c]
     constant = factor * fixed + packaging.design_cost
     if shape.carrier_slopes is None:

@@ -241,7 +241,7 @@ def milp_search(
         ]
         for _, columns, bound in pending[:3]:
             if bound is None:
-                bound = relax(columns)
+                bound = relax(columns, deadline=time.perf_counter() + 10.0)
                 if not bound.feasible:
                     continue
             order = np.argsort(bound.reduced_cost, kind="stable")
