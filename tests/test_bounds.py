@@ -193,3 +193,36 @@ def test_solver_with_column_generation_equals_exhaustive(seed, monkeypatch):
     assert [d.profit for d in ours.designs[:k]] == pytest.approx(
         [d.profit for d in brute.designs[:k]], rel=1e-9
     )
+
+
+def test_a_failing_integer_solve_is_retried_then_left_open():
+    # A solver error must neither loop forever nor close the program: the solve is
+    # retried once without presolve, then the program is marked failed with its bound
+    # kept open (the search then reports a gap, not a proof).
+    from types import SimpleNamespace
+
+    from pyomo.contrib.solver.common.results import TerminationCondition
+
+    from optimizer.solver.milp import build_subproblem, solve_round
+
+    problem = parse_problem(random_problem(1))
+    evaluator = Evaluator(problem)
+    g = next(i for i, p in enumerate(problem.packaging) if p.max_dies >= 2)
+    columns = build_columns(evaluator, build_candidates(evaluator, g), 2)
+    sub = build_subproblem(columns, np.arange(columns.n_cols))
+    sub.bound = 123.0
+    calls = []
+
+    def failing_solve(model):
+        calls.append(dict(sub.solver.config.solver_options))
+        return SimpleNamespace(
+            termination_condition=TerminationCondition.error,
+            objective_bound=None,
+            incumbent_objective=None,
+        )
+
+    sub.solver.solve = failing_solve
+    solve_round(sub)
+    assert len(calls) == 2 and calls[1].get("presolve") == "off"
+    assert sub.failed and sub.exhausted and sub.current is None
+    assert sub.bound == 123.0

@@ -693,6 +693,8 @@ class SubProblem:
     solver: Highs
     bound: float = -math.inf  # lower bound on total cost of selections not yet cut off
     exhausted: bool = False
+    failed: bool = False  # the solver gave up on it: its bound stays open, unproven
+    scale: float = 1.0  # the model's objective is the cost divided by this
     current: Selection | None = None
     active: np.ndarray | None = None
     rounds: int = 0
@@ -745,8 +747,12 @@ def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
                 )
                 <= 1
             )
+    # costs near one keep HiGHS's tolerances meaningful (raw costs reach 1e9)
+    scale = max(1.0, float(np.median(np.abs(columns.cost[keep])))) if keep.size else 1.0
     objective = LinearExpression(
-        constant=columns.constant, linear_coefs=columns.cost[keep].tolist(), linear_vars=w
+        constant=columns.constant / scale,
+        linear_coefs=(columns.cost[keep] / scale).tolist(),
+        linear_vars=w,
     )
     if columns.n_targets:
         # the same target rows as the relaxation, restricted to the kept columns
@@ -769,7 +775,8 @@ def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
                 <= float(t_hi[r])
             )
         objective = objective + LinearExpression(
-            linear_coefs=y_cost.tolist(), linear_vars=[m.y[j] for j in range(columns.n_targets)]
+            linear_coefs=(y_cost / scale).tolist(),
+            linear_vars=[m.y[j] for j in range(columns.n_targets)],
         )
     if columns.carrier_slopes is not None:
         m.carrier = pyo.Var(domain=pyo.NonNegativeReals)
@@ -789,7 +796,7 @@ def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
                     linear_vars=w,
                 )
             )
-        m.objective = pyo.Objective(expr=objective + columns.carrier_factor * m.carrier)
+        m.objective = pyo.Objective(expr=objective + columns.carrier_factor / scale * m.carrier)
     else:
         m.objective = pyo.Objective(expr=objective)
     m.nogood = pyo.ConstraintList()
@@ -797,8 +804,8 @@ def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
     solver.config.load_solutions = False
     solver.config.raise_exception_on_nonoptimal_result = False
     solver.config.rel_gap = 1e-9
-    solver.config.abs_gap = 1e-6
-    return SubProblem(columns, keep, m, solver)
+    solver.config.abs_gap = 1e-6 / scale
+    return SubProblem(columns, keep, m, solver, scale=scale)
 
 
 def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
@@ -807,6 +814,11 @@ def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
     if time_limit is not None:
         sub.solver.config.time_limit = max(time_limit, 0.01)
     result = sub.solver.solve(sub.model)
+    if result.termination_condition == TerminationCondition.error:
+        # HiGHS's presolve can fail on a program that cuts have made infeasible; solve
+        # this program without it from now on
+        sub.solver.config.solver_options["presolve"] = "off"
+        result = sub.solver.solve(sub.model)
     sub.rounds += 1
     sub.seconds += time.perf_counter() - start
     tc = result.termination_condition
@@ -817,12 +829,14 @@ def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
         sub.log.append(f"round {sub.rounds}: no selection left")
         return
     bound = result.objective_bound
-    sub.bound = (
-        max(sub.bound, float(bound)) if bound is not None and math.isfinite(bound) else sub.bound
-    )
+    if bound is not None and math.isfinite(bound):
+        sub.bound = max(sub.bound, float(bound) * sub.scale)
     if result.incumbent_objective is None:
-        sub.current = None  # time ran out before a selection was found
-        sub.log.append(f"round {sub.rounds}: no selection found yet ({tc.name})")
+        sub.current = None
+        if tc != TerminationCondition.maxTimeLimit:
+            # the solver failed: stop working on this program, its bound stays open
+            sub.failed = sub.exhausted = True
+        sub.log.append(f"round {sub.rounds}: no selection found ({tc.name})")
         return
     result.solution_loader.load_vars()
     values = np.array([sub.model.w[i].value or 0.0 for i in range(sub.keep.size)])
@@ -834,7 +848,7 @@ def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
     sub.active = active
     sub.log.append(
         f"round {sub.rounds}: bound {sub.bound:.8g}, selection objective "
-        f"{result.incumbent_objective:.8g} ({tc.name})"
+        f"{result.incumbent_objective * sub.scale:.8g} ({tc.name})"
     )
 
 
@@ -848,5 +862,4 @@ def cut_current(sub: SubProblem) -> None:
         <= len(active) - 1
     )
     sub.cuts += 1
-    sub.current = None
-    sub.bound = -math.inf  # the program changed; its next solve sets the bound again
+    sub.current = None  # the bound stays valid: a cut can only raise the optimum

@@ -256,7 +256,9 @@ def milp_search(
         key=lambda item: (item[1], item[0]),
     )[:top]
     ranked = [RankedSelection(sel, total, revenue - total) for sel, total in ranked_items]
-    open_bounds = [s.bound for s in subs if not s.exhausted and open_bound(s.bound)] + unexplored
+    open_bounds = [
+        s.bound for s in subs if (s.failed or not s.exhausted) and open_bound(s.bound)
+    ] + unexplored
     best = ranked[0].total_cost if ranked else math.inf
     bound = min([best, *open_bounds])
     proven = not timed_out and not open_bounds
