@@ -20,6 +20,20 @@ from optimizer.solver.milp import build_columns, relax
 from tests.test_solver import random_problem
 
 
+def multi_die_packagings(problem, fewest_dies: int = 2):
+    """(evaluator, packaging index, most dies, candidates) of every packaging of the
+    problem that allows at least ``fewest_dies`` dies and has candidate dies."""
+    evaluator = Evaluator(problem)
+    contents = enumerate_contents(evaluator)
+    for g, packaging in enumerate(problem.packaging):
+        n_max = min(packaging.max_dies, problem.constraints.max_dies)
+        if n_max < fewest_dies:
+            continue
+        cset = build_candidates(evaluator, g, contents)
+        if len(cset):
+            yield evaluator, g, n_max, cset
+
+
 def dominators_by_definition(group, metrics):
     """Rows of the same group no worse everywhere and better somewhere, or an equal
     earlier row (the tie rule), counted for each row."""
@@ -53,16 +67,8 @@ def test_joint_bound_over_die_counts_is_below_every_count(seed):
     # The joint program over die counts 2..n_max must bound every count's program from
     # below, and the true cost (exhaustive reference) of every multi-die design.
     problem = parse_problem(random_problem(seed))
-    evaluator = Evaluator(problem)
-    contents = enumerate_contents(evaluator)
     checked = 0
-    for g, packaging in enumerate(problem.packaging):
-        n_max = min(packaging.max_dies, problem.constraints.max_dies)
-        if n_max < 3:
-            continue
-        cset = build_candidates(evaluator, g, contents)
-        if len(cset) == 0:
-            continue
+    for evaluator, _, n_max, cset in multi_die_packagings(problem, 3):
         joint = build_columns(evaluator, cset, 2, n_max)
         if joint is None:
             continue
@@ -84,6 +90,8 @@ def test_joint_bound_over_die_counts_is_below_every_count(seed):
     except ProblemError:
         return
     revenue = problem.market.unit_price * problem.market.volume
+    evaluator = Evaluator(problem)
+    contents = enumerate_contents(evaluator)
     for design in brute.designs:
         n_dies = sum(die.copies for die in design.dies)
         g = [p.name for p in problem.packaging].index(design.packaging)
@@ -117,13 +125,7 @@ def test_programs_sharing_columns_equal_programs_built_alone(seed):
     from optimizer.solver.milp import dual_bound
 
     problem = parse_problem(random_problem(seed))
-    evaluator = Evaluator(problem)
-    contents = enumerate_contents(evaluator)
-    for g, packaging in enumerate(problem.packaging):
-        n_max = min(packaging.max_dies, problem.constraints.max_dies)
-        cset = build_candidates(evaluator, g, contents)
-        if n_max < 3 or len(cset) == 0:
-            continue
+    for evaluator, _, n_max, cset in multi_die_packagings(problem, 3):
         joint = build_columns(evaluator, cset, 2, n_max)
         if joint is None:
             continue
@@ -146,14 +148,8 @@ def test_column_generation_reaches_the_full_relaxation(seed, monkeypatch):
     from optimizer.solver import milp
 
     problem = parse_problem(random_problem(seed))
-    evaluator = Evaluator(problem)
-    contents = enumerate_contents(evaluator)
     compared = 0
-    for g, packaging in enumerate(problem.packaging):
-        n_max = min(packaging.max_dies, problem.constraints.max_dies)
-        cset = build_candidates(evaluator, g, contents)
-        if n_max < 2 or len(cset) == 0:
-            continue
+    for evaluator, _, n_max, cset in multi_die_packagings(problem):
         for lo, hi in [(2, n_max)] + [(n, n) for n in range(2, n_max + 1)]:
             columns = build_columns(evaluator, cset, lo, hi)
             if columns is None:
