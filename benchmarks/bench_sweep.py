@@ -55,8 +55,10 @@ def bench(study, axis, workers: int, label: str, every_point: bool = True):
         f"kinds, {len(one.crossovers)} crossovers, candidates shared: {one.shared_candidates}"
     )
     print(f"  1 worker : {t_one:7.1f} s  {n / t_one:6.2f} scenarios/s")
-    print(f"  {workers} workers: {t_many:7.1f} s  {n / t_many:6.2f} scenarios/s  "
-          f"speed-up {t_one / t_many:.2f}x  (identical results)")
+    print(
+        f"  {workers} workers: {t_many:7.1f} s  {n / t_many:6.2f} scenarios/s  "
+        f"speed-up {t_one / t_many:.2f}x  (identical results)"
+    )
     return one, t_one, t_many
 
 
@@ -104,24 +106,26 @@ def main() -> None:
     parser.add_argument("--workers", type=int, default=2)
     args = parser.parse_args()
     study = study_from_data(synthetic_data(args.blocks), f"synthetic-{args.blocks}")
-    print(f"machine ceiling: {args.workers} CPU-bound processes run "
-          f"{machine_ceiling(args.workers):.2f}x faster than one (pure-Python control loop)")
+    print(
+        f"machine ceiling: {args.workers} CPU-bound processes run "
+        f"{machine_ceiling(args.workers):.2f}x faster than one (pure-Python control loop)"
+    )
 
     if args.scenarios:
         volume = make_axis("market.volume", 3e4, 3e7, args.scenarios, log=True)
-        one, t_one, t_many = bench(study, volume, args.workers, "market.volume sweep",
-                                   every_point=False)
+        one, t_one, t_many = bench(
+            study, volume, args.workers, "market.volume sweep", every_point=False
+        )
         floors("envelope", len(one.points), t_one, t_many, args.workers)
     if args.every_point_scenarios:
         volume = make_axis("market.volume", 3e4, 3e7, args.every_point_scenarios, log=True)
-        one, t_one, t_many = bench(study, volume, args.workers,
-                                   "market.volume sweep, every point")
+        one, t_one, t_many = bench(study, volume, args.workers, "market.volume sweep, every point")
         floors("every point", len(one.points), t_one, t_many, args.workers)
     if args.density_scenarios:
-        density = make_axis("process.n1.defect_density", 0.04, 0.4, args.density_scenarios,
-                            log=True)
-        one, t_one, t_many = bench(study, density, args.workers,
-                                   "process.n1.defect_density sweep")
+        density = make_axis(
+            "process.n1.defect_density", 0.04, 0.4, args.density_scenarios, log=True
+        )
+        one, t_one, t_many = bench(study, density, args.workers, "process.n1.defect_density sweep")
         floors("every point", len(one.points), t_one, t_many, args.workers)
 
 

@@ -39,27 +39,77 @@ def _folder(results: Path) -> Path:
 def test_sweep_writes_its_run_folder(write_problem, tmp_path):
     problem = write_problem(BREAK_EVEN)
     results = tmp_path / "results"
-    out = runner.invoke(app, ["sweep", str(problem), "--vary", "market.volume", "1e4", "1e8",
-                              "--steps", "5", "--log", "--workers", "1", "--results",
-                              str(results)])
+    out = runner.invoke(
+        app,
+        [
+            "sweep",
+            str(problem),
+            "--vary",
+            "market.volume",
+            "1e4",
+            "1e8",
+            "--steps",
+            "5",
+            "--log",
+            "--workers",
+            "1",
+            "--results",
+            str(results),
+        ],
+    )
     assert out.exit_code == 0, out.output
     folder = _folder(results)
     assert f"wrote {folder}" in out.stdout.replace("\n", "")
     names = {p.name for p in folder.iterdir()}
-    assert {"points.csv", "crossovers.csv", "curves.csv", "designs.json", "options.json",
-            "profit.png", "profit.svg", "problem.toml"} <= names
+    assert {
+        "points.csv",
+        "crossovers.csv",
+        "curves.csv",
+        "designs.json",
+        "options.json",
+        "profit.png",
+        "profit.svg",
+        "problem.toml",
+    } <= names
     options = json.loads((folder / "options.json").read_text())
-    assert options["axes"][0] == {"path": "market.volume", "unit": "", "low": 1e4,
-                                  "high": 1e8, "steps": 5, "log": True}
+    assert options["axes"][0] == {
+        "path": "market.volume",
+        "unit": "",
+        "low": 1e4,
+        "high": 1e8,
+        "steps": 5,
+        "log": True,
+    }
     assert "Crossovers" in out.stdout
 
 
 def test_sweep_json_and_two_axes(write_problem, tmp_path):
     problem = write_problem(TINY_PROBLEM)
-    out = runner.invoke(app, ["sweep", str(problem), "--vary", "process.cheap.wafer_cost",
-                              "2000", "12000", "--steps", "3", "--vary2", "market.volume",
-                              "1e4", "1e6", "--steps2", "2", "--log2", "--workers", "1",
-                              "--json", "--results", str(tmp_path / "r")])
+    out = runner.invoke(
+        app,
+        [
+            "sweep",
+            str(problem),
+            "--vary",
+            "process.cheap.wafer_cost",
+            "2000",
+            "12000",
+            "--steps",
+            "3",
+            "--vary2",
+            "market.volume",
+            "1e4",
+            "1e6",
+            "--steps2",
+            "2",
+            "--log2",
+            "--workers",
+            "1",
+            "--json",
+            "--results",
+            str(tmp_path / "r"),
+        ],
+    )
     assert out.exit_code == 0, out.output
     payload = json.loads(out.stdout)
     assert len(payload["points"]) == 6
@@ -69,30 +119,49 @@ def test_sweep_json_and_two_axes(write_problem, tmp_path):
 @pytest.mark.parametrize(
     ("args", "line"),
     [
-        (["--vary", "market.volum", "1", "2"],
-         "dieplan: --vary: market.volum: 'volum' is not a field of [market]"),
-        (["--vary", "process.slow.wafer_cost", "1", "2"],
-         "dieplan: --vary: process.slow.wafer_cost: no process named 'slow'"),
-        (["--vary", "process.fast.yield_model", "1", "2"],
-         "dieplan: --vary: process.fast.yield_model: 'yield_model' is not a number"),
-        (["--vary", "market.volume", "2e6", "1e5"],
-         "dieplan: --vary: market.volume: low (2e+06) must be below high (100000)"),
-        (["--vary", "market.volume", "0", "1e5", "--log"],
-         "dieplan: --vary: market.volume: log steps need a positive low end"),
-        (["--vary", "market.volume", "1e4", "1e5", "--steps", "1"],
-         "dieplan: --steps: market.volume: needs at least 2 grid points"),
-        (["--vary", "packaging.multi.bond_yield", "0.5", "1.5"],
-         "dieplan: --vary: packaging.multi.bond_yield: 1.5 makes the problem invalid"),
-        (["--vary", "market.volume", "1e4", "1e5", "--vary2", "market.volume", "1", "2"],
-         "dieplan: --vary2: market.volume: is already swept by --vary"),
-        (["--vary", "market.volume", "1e4", "1e5", "--workers", "0"],
-         "dieplan: --workers: must be at least 1"),
+        (
+            ["--vary", "market.volum", "1", "2"],
+            "dieplan: --vary: market.volum: 'volum' is not a field of [market]",
+        ),
+        (
+            ["--vary", "process.slow.wafer_cost", "1", "2"],
+            "dieplan: --vary: process.slow.wafer_cost: no process named 'slow'",
+        ),
+        (
+            ["--vary", "process.fast.yield_model", "1", "2"],
+            "dieplan: --vary: process.fast.yield_model: 'yield_model' is not a number",
+        ),
+        (
+            ["--vary", "market.volume", "2e6", "1e5"],
+            "dieplan: --vary: market.volume: low (2e+06) must be below high (100000)",
+        ),
+        (
+            ["--vary", "market.volume", "0", "1e5", "--log"],
+            "dieplan: --vary: market.volume: log steps need a positive low end",
+        ),
+        (
+            ["--vary", "market.volume", "1e4", "1e5", "--steps", "1"],
+            "dieplan: --steps: market.volume: needs at least 2 grid points",
+        ),
+        (
+            ["--vary", "packaging.multi.bond_yield", "0.5", "1.5"],
+            "dieplan: --vary: packaging.multi.bond_yield: 1.5 makes the problem invalid",
+        ),
+        (
+            ["--vary", "market.volume", "1e4", "1e5", "--vary2", "market.volume", "1", "2"],
+            "dieplan: --vary2: market.volume: is already swept by --vary",
+        ),
+        (
+            ["--vary", "market.volume", "1e4", "1e5", "--workers", "0"],
+            "dieplan: --workers: must be at least 1",
+        ),
     ],
 )
 def test_bad_sweeps_exit_2_with_one_line(write_problem, tmp_path, args, line):
     results = tmp_path / "results"
-    out = runner.invoke(app, ["sweep", str(write_problem(TINY_PROBLEM)), *args,
-                              "--results", str(results)])
+    out = runner.invoke(
+        app, ["sweep", str(write_problem(TINY_PROBLEM)), *args, "--results", str(results)]
+    )
     assert out.exit_code == 2, out.output
     assert out.stderr.startswith(line), out.stderr
     assert out.stderr.count("\n") == 1 and "Traceback" not in out.output
@@ -102,12 +171,28 @@ def test_bad_sweeps_exit_2_with_one_line(write_problem, tmp_path, args, line):
 def test_compare_command(write_problem, tmp_path):
     problem = write_problem(TINY_PROBLEM)
     results = tmp_path / "results"
-    out = runner.invoke(app, ["compare", str(problem), "--processes", "fast",
-                              "--processes", "fast,cheap", "--results", str(results)])
+    out = runner.invoke(
+        app,
+        [
+            "compare",
+            str(problem),
+            "--processes",
+            "fast",
+            "--processes",
+            "fast,cheap",
+            "--results",
+            str(results),
+        ],
+    )
     assert out.exit_code == 0, out.output
     folder = _folder(results)
-    assert {"comparison.csv", "cost_by_component.png", "cost_by_component.svg",
-            "options.json", "problem.toml"} <= {p.name for p in folder.iterdir()}
+    assert {
+        "comparison.csv",
+        "cost_by_component.png",
+        "cost_by_component.svg",
+        "options.json",
+        "problem.toml",
+    } <= {p.name for p in folder.iterdir()}
     assert "Winners side by side" in out.stdout
     bad = runner.invoke(app, ["compare", str(problem), "--processes", "fast,nope"])
     assert bad.exit_code == 2
@@ -116,8 +201,9 @@ def test_compare_command(write_problem, tmp_path):
 
 def test_compare_two_files(write_problem, tmp_path):
     first = write_problem(TINY_PROBLEM, name="a.toml")
-    second = write_problem(TINY_PROBLEM, ("unit_price = 500.0", "unit_price = 700.0"),
-                           name="b.toml")
+    second = write_problem(
+        TINY_PROBLEM, ("unit_price = 500.0", "unit_price = 700.0"), name="b.toml"
+    )
     out = runner.invoke(app, ["compare", str(first), str(second), "--json", "--no-write"])
     assert out.exit_code == 0, out.output
     rows = json.loads(out.stdout)["comparison"]
@@ -129,13 +215,25 @@ def test_compare_two_files(write_problem, tmp_path):
 def test_sensitivity_command(write_problem, tmp_path):
     problem = write_problem(TINY_PROBLEM + UNCERTAIN)
     results = tmp_path / "results"
-    out = runner.invoke(app, ["sensitivity", str(problem), "--range",
-                              "block.io.area=35 mm^2:45 mm^2", "--json", "--results",
-                              str(results)])
+    out = runner.invoke(
+        app,
+        [
+            "sensitivity",
+            str(problem),
+            "--range",
+            "block.io.area=35 mm^2:45 mm^2",
+            "--json",
+            "--results",
+            str(results),
+        ],
+    )
     assert out.exit_code == 0, out.output
     payload = json.loads(out.stdout)
     assert {r["input"] for r in payload["sensitivity"]} == {
-        "process.cheap.defect_density", "market.volume", "block.io.area"}
+        "process.cheap.defect_density",
+        "market.volume",
+        "block.io.area",
+    }
     assert (Path(payload["run_folder"]) / "tornado.svg").exists()
     bad = runner.invoke(app, ["sensitivity", str(problem), "--range", "market.volume:1:2"])
     assert bad.exit_code == 2 and "write PATH=LOW:HIGH" in bad.stderr
@@ -145,15 +243,35 @@ def test_uncertainty_command_is_reproducible(write_problem, tmp_path):
     problem = write_problem(TINY_PROBLEM + UNCERTAIN)
     runs = []
     for _ in range(2):
-        out = runner.invoke(app, ["uncertainty", str(problem), "--samples", "40", "--seed",
-                                  "9", "--top", "2", "--workers", "1", "--json",
-                                  "--results", str(tmp_path / "results")])
+        out = runner.invoke(
+            app,
+            [
+                "uncertainty",
+                str(problem),
+                "--samples",
+                "40",
+                "--seed",
+                "9",
+                "--top",
+                "2",
+                "--workers",
+                "1",
+                "--json",
+                "--results",
+                str(tmp_path / "results"),
+            ],
+        )
         assert out.exit_code == 0, out.output
         runs.append(json.loads(out.stdout))
     assert runs[0]["summary"] == runs[1]["summary"]
     folder = Path(runs[0]["run_folder"])
-    assert {"summary.csv", "samples.csv", "profit_distribution.png",
-            "profit_distribution.svg", "options.json"} <= {p.name for p in folder.iterdir()}
+    assert {
+        "summary.csv",
+        "samples.csv",
+        "profit_distribution.png",
+        "profit_distribution.svg",
+        "options.json",
+    } <= {p.name for p in folder.iterdir()}
     options = json.loads((folder / "options.json").read_text())
     assert options["seed"] == 9 and options["samples"] == 40
 
@@ -161,8 +279,9 @@ def test_uncertainty_command_is_reproducible(write_problem, tmp_path):
 def test_uncertainty_without_entries_and_bad_entry(write_problem):
     out = runner.invoke(app, ["uncertainty", str(write_problem(TINY_PROBLEM)), "--no-write"])
     assert out.exit_code == 2 and "no [[uncertain]] inputs" in out.stderr
-    bad = TINY_PROBLEM + UNCERTAIN.replace("process.cheap.defect_density",
-                                           "process.chep.defect_density")
+    bad = TINY_PROBLEM + UNCERTAIN.replace(
+        "process.cheap.defect_density", "process.chep.defect_density"
+    )
     out = runner.invoke(app, ["uncertainty", str(write_problem(bad)), "--no-write"])
     assert out.exit_code == 2
     assert ": uncertain[0].path: no process named 'chep'" in out.stderr

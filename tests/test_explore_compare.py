@@ -19,9 +19,16 @@ from optimizer.solver import solve
 from tests.conftest import TINY_PROBLEM
 
 INTERPOSER = {
-    "name": "bridge", "kind": "silicon_interposer", "max_dies": 4, "bond_cost_per_die": 3.0,
-    "carrier_cost": 20.0, "package_cost": 10.0, "final_test_cost": 6.0,
-    "interface_density": "300 GB/s/mm^2", "design_cost": 2.0e6, "interposer_process": "cheap",
+    "name": "bridge",
+    "kind": "silicon_interposer",
+    "max_dies": 4,
+    "bond_cost_per_die": 3.0,
+    "carrier_cost": 20.0,
+    "package_cost": 10.0,
+    "final_test_cost": 6.0,
+    "interface_density": "300 GB/s/mm^2",
+    "design_cost": 2.0e6,
+    "interposer_process": "cheap",
 }
 
 
@@ -59,8 +66,9 @@ def test_component_differences_add_up_to_the_cost_gap():
         costs = sum(row[f"cost_{c}"] for c in COST_COMPONENTS)
         assert costs == pytest.approx(row["cost_per_good_unit"], rel=1e-12)
         diffs = sum(row[f"diff_{c}"] for c in COST_COMPONENTS)
-        assert diffs == pytest.approx(row["cost_per_good_unit"] - best["cost_per_good_unit"],
-                                      abs=1e-9)
+        assert diffs == pytest.approx(
+            row["cost_per_good_unit"] - best["cost_per_good_unit"], abs=1e-9
+        )
     worst = table.iloc[-1]
     largest = max(COST_COMPONENTS, key=lambda c: abs(worst[f"diff_{c}"]))
     assert largest in worst["differences_explained"]
@@ -110,10 +118,18 @@ def test_sensitivity_reprices_the_same_design_and_ranks_by_swing():
     # source: the winner re-priced by hand with the evaluator on a hand-edited problem
     data = _tiny()
     data["uncertain"] = [
-        {"path": "process.cheap.defect_density", "distribution": "lognormal",
-         "median": 0.08, "sigma_log": 0.3},
-        {"path": "process.cheap.wafer_cost", "distribution": "uniform", "low": 3500.0,
-         "high": 4200.0},
+        {
+            "path": "process.cheap.defect_density",
+            "distribution": "lognormal",
+            "median": 0.08,
+            "sigma_log": 0.3,
+        },
+        {
+            "path": "process.cheap.wafer_cost",
+            "distribution": "uniform",
+            "low": 3500.0,
+            "high": 4200.0,
+        },
     ]
     study = study_from_data(data, "tiny")
     ranges = ranges_from_study(study) + [make_range("block.io.area", "35 mm^2", "45 mm^2")]
@@ -125,8 +141,14 @@ def test_sensitivity_reprices_the_same_design_and_ranks_by_swing():
     edited["process"][1]["defect_density"] = f"{float(row['low'])!r} /cm^2"
     problem = parse_problem(edited)
     specs = [
-        DieSpec(process=d.process, blocks=d.blocks, spares=d.spares, repair=d.repair,
-                copies=d.copies, name=d.name)
+        DieSpec(
+            process=d.process,
+            blocks=d.blocks,
+            spares=d.spares,
+            repair=d.repair,
+            copies=d.copies,
+            name=d.name,
+        )
         for d in result.winner.dies
     ]
     by_hand = evaluate_specs(Evaluator(problem), specs, result.winner.packaging)

@@ -16,8 +16,12 @@ from optimizer.problem import ProblemError
 from tests.conftest import TINY_PROBLEM
 
 UNCERTAIN = [
-    {"path": "process.cheap.defect_density", "distribution": "lognormal", "median": 0.08,
-     "sigma_log": 0.3},
+    {
+        "path": "process.cheap.defect_density",
+        "distribution": "lognormal",
+        "median": 0.08,
+        "sigma_log": 0.3,
+    },
     {"path": "market.unit_price", "distribution": "uniform", "low": 450.0, "high": 560.0},
 ]
 

@@ -139,10 +139,19 @@ def test_uncertain_default_ranges(tiny):
         _with_uncertain(
             tiny,
             {"path": "market.volume", "distribution": "normal", "mean": 1e5, "std": 1e4},
-            {"path": "process.fast.defect_density", "distribution": "lognormal",
-             "median": "0.1 /cm^2", "sigma_log": 0.25},
-            {"path": "market.unit_price", "distribution": "triangular", "low": 400,
-             "mode": 500, "high": 650},
+            {
+                "path": "process.fast.defect_density",
+                "distribution": "lognormal",
+                "median": "0.1 /cm^2",
+                "sigma_log": 0.25,
+            },
+            {
+                "path": "market.unit_price",
+                "distribution": "triangular",
+                "low": 400,
+                "mode": 500,
+                "high": 650,
+            },
         ),
         "t",
     )
@@ -155,16 +164,31 @@ def test_uncertain_default_ranges(tiny):
 @pytest.mark.parametrize(
     ("entry", "field", "words"),
     [
-        ({"path": "market.volme", "distribution": "normal", "mean": 1, "std": 1},
-         "uncertain[0].path", "'volme' is not a field"),
-        ({"path": "market.volume", "distribution": "lognormal", "median": 1e5},
-         "uncertain[0]", "needs ['sigma_log']"),
-        ({"path": "market.volume", "distribution": "normal", "mean": 1e5, "std": 1,
-          "median": 3}, "uncertain[0]", "do not belong"),
-        ({"path": "market.volume", "distribution": "uniform", "low": 5, "high": 1},
-         "uncertain[0]", "must be below high"),
-        ({"path": "market.volume", "distribution": "gamma", "mean": 1, "std": 1},
-         "uncertain[0].distribution", "use one of"),
+        (
+            {"path": "market.volme", "distribution": "normal", "mean": 1, "std": 1},
+            "uncertain[0].path",
+            "'volme' is not a field",
+        ),
+        (
+            {"path": "market.volume", "distribution": "lognormal", "median": 1e5},
+            "uncertain[0]",
+            "needs ['sigma_log']",
+        ),
+        (
+            {"path": "market.volume", "distribution": "normal", "mean": 1e5, "std": 1, "median": 3},
+            "uncertain[0]",
+            "do not belong",
+        ),
+        (
+            {"path": "market.volume", "distribution": "uniform", "low": 5, "high": 1},
+            "uncertain[0]",
+            "must be below high",
+        ),
+        (
+            {"path": "market.volume", "distribution": "gamma", "mean": 1, "std": 1},
+            "uncertain[0].distribution",
+            "use one of",
+        ),
     ],
 )
 def test_bad_uncertain_entries_name_the_entry(tiny, entry, field, words):
@@ -175,8 +199,12 @@ def test_bad_uncertain_entries_name_the_entry(tiny, entry, field, words):
 
 
 def test_uncertain_item_names_are_checked_on_the_problem(tiny):
-    entry = {"path": "process.nope.defect_density", "distribution": "lognormal",
-             "median": 0.1, "sigma_log": 0.2}
+    entry = {
+        "path": "process.nope.defect_density",
+        "distribution": "lognormal",
+        "median": 0.1,
+        "sigma_log": 0.2,
+    }
     problem = parse_problem(_with_uncertain(tiny, entry), "t.toml")
     with pytest.raises(ProblemError) as info:
         check_uncertain(problem, "t.toml")

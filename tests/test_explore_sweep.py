@@ -22,10 +22,8 @@ def test_volume_crossover_matches_break_even_volume():
     # source: hand-derived break-even. Profit = V (p - c) - NRE for each design, so two
     # designs tie where V* = (NRE_b - NRE_a) / (c_a - c_b), c the manufacturing cost per
     # good unit. c and NRE come from two independent single solves at the sweep's ends.
-    low_end = parse_problem({**data(BREAK_EVEN), "market": {"unit_price": 300.0,
-                                                              "volume": 1e4}})
-    high_end = parse_problem({**data(BREAK_EVEN), "market": {"unit_price": 300.0,
-                                                               "volume": 1e8}})
+    low_end = parse_problem({**data(BREAK_EVEN), "market": {"unit_price": 300.0, "volume": 1e4}})
+    high_end = parse_problem({**data(BREAK_EVEN), "market": {"unit_price": 300.0, "volume": 1e8}})
     a = solve(low_end, top=1).best
     b = solve(high_end, top=1).best
     assert design_kind(a) != design_kind(b)
@@ -131,18 +129,27 @@ def test_envelope_sweep_equals_a_solve_at_every_point(text):
     assert slow.strategy == "every point" and slow.solves == 25
     assert list(fast.points["design"]) == list(slow.points["design"])
     np.testing.assert_allclose(fast.points["profit"], slow.points["profit"], rtol=1e-12)
-    np.testing.assert_allclose(fast.points["cost_per_good_unit"],
-                               slow.points["cost_per_good_unit"], rtol=1e-12)
-    np.testing.assert_allclose(fast.crossovers["crossing"].to_numpy(dtype=float),
-                               slow.crossovers["crossing"].to_numpy(dtype=float), rtol=1e-12)
+    np.testing.assert_allclose(
+        fast.points["cost_per_good_unit"], slow.points["cost_per_good_unit"], rtol=1e-12
+    )
+    np.testing.assert_allclose(
+        fast.crossovers["crossing"].to_numpy(dtype=float),
+        slow.crossovers["crossing"].to_numpy(dtype=float),
+        rtol=1e-12,
+    )
 
 
 def test_salvage_bins_make_every_point_solves():
     # salvage revenue saturates at the bin's demand, so profit is not affine in volume
     edited = tomllib.loads(TINY_PROBLEM)
     edited["market"]["salvage_bin"] = [
-        {"name": "one_core", "block": "compute", "min_good": 1, "unit_price": 300.0,
-         "demand": 5000.0}
+        {
+            "name": "one_core",
+            "block": "compute",
+            "min_good": 1,
+            "unit_price": 300.0,
+            "demand": 5000.0,
+        }
     ]
     study = study_from_data(edited, "t")
     result = run_sweep(study, [make_axis("market.volume", 1e4, 1e6, 3, log=True)])

@@ -28,8 +28,12 @@ def _study(*entries: dict, text: str = ONE_DIE):
     return study_from_data({**data(text), "uncertain": list(entries)}, "one-die")
 
 
-DENSITY = {"path": "process.only.defect_density", "distribution": "lognormal",
-           "median": MEDIAN, "sigma_log": SIGMA}
+DENSITY = {
+    "path": "process.only.defect_density",
+    "distribution": "lognormal",
+    "median": MEDIAN,
+    "sigma_log": SIGMA,
+}
 
 
 def test_lognormal_defect_density_percentiles_through_poisson_yield():
@@ -55,8 +59,7 @@ def test_lognormal_defect_density_percentiles_through_poisson_yield():
 def test_market_only_inputs_map_exactly_and_match_the_full_path():
     # source: profit = V (p - c) - NRE is increasing and affine in V, and numpy's linear
     # percentile commutes with increasing affine maps: P_q(profit) = (p - c) P_q(V) - NRE.
-    volume = {"path": "market.volume", "distribution": "lognormal", "median": 2e6,
-              "sigma_log": 0.4}
+    volume = {"path": "market.volume", "distribution": "lognormal", "median": 2e6, "sigma_log": 0.4}
     study = _study(volume)
     result = run_uncertainty(study, samples=800, seed=3, top=1)
     margin = 120.0 - one_die_unit_cost(0.2)  # p - c per unit, from the closed form
@@ -106,11 +109,25 @@ def test_file_without_uncertain_inputs_is_a_clear_error():
     ("entry", "words"),
     [
         # a normal density this wide draws negative densities
-        ({"path": "process.only.defect_density", "distribution": "normal", "mean": 0.05,
-          "std": 0.05}, "cannot be negative"),
+        (
+            {
+                "path": "process.only.defect_density",
+                "distribution": "normal",
+                "mean": 0.05,
+                "std": 0.05,
+            },
+            "cannot be negative",
+        ),
         # fault coverage is a fraction: draws above 1 break the schema
-        ({"path": "process.only.fault_coverage", "distribution": "normal", "mean": 0.97,
-          "std": 0.03}, "less than or equal to 1"),
+        (
+            {
+                "path": "process.only.fault_coverage",
+                "distribution": "normal",
+                "mean": 0.97,
+                "std": 0.03,
+            },
+            "less than or equal to 1",
+        ),
     ],
 )
 def test_draws_outside_the_field_stop_before_pricing(entry, words):
