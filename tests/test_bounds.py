@@ -62,7 +62,9 @@ def test_pareto_keep_follows_the_definition(seed, depth):
     assert np.array_equal(pareto_keep(group, metrics, depth), expected)
 
 
-@pytest.mark.parametrize("seed", range(12))
+# draws where a packaging of three or more dies has a feasible program (0, 4, 7, 8 and
+# 12 have none)
+@pytest.mark.parametrize("seed", [1, 2, 3, 5, 6, 9, 10, 11, 13, 14, 15, 17])
 def test_joint_bound_over_die_counts_is_below_every_count(seed):
     # The joint program over die counts 2..n_max must bound every count's program from
     # below, and the true cost (exhaustive reference) of every multi-die design.
@@ -83,8 +85,7 @@ def test_joint_bound_over_die_counts_is_below_every_count(seed):
                 assert joint_bound.feasible
                 assert joint_bound.value <= bound.value * (1 + 1e-12) + 1e-6
         checked += 1
-    if checked == 0:
-        pytest.skip("no packaging with three or more dies in this draw")
+    assert checked > 0
     try:
         brute = solve(problem, top=40, method="exhaustive")
     except ProblemError:
@@ -140,7 +141,8 @@ def test_programs_sharing_columns_equal_programs_built_alone(seed):
                 assert dual_bound(alone, b.row_dual) == pytest.approx(b.value, rel=1e-9)
 
 
-@pytest.mark.parametrize("seed", range(8))
+# draws with a multi-die packaging whose programs exist (4 has none)
+@pytest.mark.parametrize("seed", [0, 1, 2, 3, 5, 6, 7, 8])
 def test_column_generation_reaches_the_full_relaxation(seed, monkeypatch):
     # Column generation from a tiny start (forced here, a few columns at a time) must end
     # at the optimum of the relaxation solved over all columns at once, and agree on
@@ -165,8 +167,7 @@ def test_column_generation_reaches_the_full_relaxation(seed, monkeypatch):
                 assert generated.value <= full.value * (1 + 1e-9) + 1e-6
                 assert generated.value == pytest.approx(full.value, rel=1e-7)
             compared += 1
-    if compared == 0:
-        pytest.skip("no multi-die packaging in this draw")
+    assert compared > 0
 
 
 @pytest.mark.parametrize("seed", [0, 3, 6, 9])
