@@ -158,6 +158,10 @@ class Columns:
         """The relaxation's arrays (built once: bounds and the solve both use them)."""
         return _linear_program(self)
 
+    def release_arrays(self) -> None:
+        """Forget the cached relaxation arrays (rebuilt if asked for again)."""
+        self.__dict__.pop("linear_program", None)
+
     @property
     def usable(self) -> np.ndarray:
         """Columns this program may use: no more copies than its most dies."""

@@ -186,27 +186,19 @@ def milp_search(
             unexplored.append(cheap)
             continue
         bound = relax(columns, row_hint=hint, stop_above=threshold(), deadline=deadline)
-        columns.__dict__.pop("linear_program", None)  # arrays no longer needed: free them
+        columns.release_arrays()  # its integer program needs only the columns
         if not bound.feasible or not open_bound(bound.value):
             continue
         value = bound.value
         relaxed.append((value, columns, bound))
         usable = columns.usable
-
-        def screened(usable=usable, bound=bound) -> np.ndarray:
-            # columns at zero whose reduced cost lifts the bound above the threshold can
-            # be in no selection that ranks
-            limit = threshold() * (1 + REL_TOL) + 1e-6
-            lifted = bound.value + bound.reduced_cost > limit
-            return np.flatnonzero(usable & ~(bound.at_zero & lifted))
-
         # unless the screen already leaves a small program, a small program over the
         # least-reduced-cost columns tightens the threshold first, so that the screen
         # drops as many columns as possible
         order = np.argsort(np.where(usable, bound.reduced_cost, np.inf), kind="stable")
         few = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
         few = few[usable[few]]
-        if screened().size > screen_columns and few.size < usable.sum():
+        if _screen(bound, usable, threshold()).size > screen_columns and few.size < usable.sum():
             scout = build_subproblem(columns, few)
             for _ in range(top):
                 solve_round(scout, remaining())
@@ -214,7 +206,7 @@ def milp_search(
                 if scout.current is None or out_of_time():
                     break
                 cut_current(scout)
-        sub = build_subproblem(columns, screened())
+        sub = build_subproblem(columns, _screen(bound, usable, threshold()))
         sub.bound = value
         sub.log.append(f"relaxation {value:.8g}; {sub.keep.size} of {columns.n_cols} columns kept")
         subs.append(sub)
@@ -288,6 +280,14 @@ def milp_search(
         log=log,
         stats=stats,
     )
+
+
+def _screen(bound: RelaxedBound, usable: np.ndarray, threshold: float) -> np.ndarray:
+    """Columns that may still rank: a column at zero whose reduced cost lifts the bound
+    above the threshold is in no selection that could."""
+    limit = threshold * (1 + REL_TOL) + 1e-6
+    lifted = bound.value + bound.reduced_cost > limit
+    return np.flatnonzero(usable & ~(bound.at_zero & lifted))
 
 
 def profit_bound(outcome: SearchOutcome, evaluator: Evaluator) -> float:
