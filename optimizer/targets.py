@@ -10,6 +10,7 @@
 
 from __future__ import annotations
 
+import time
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -50,13 +51,13 @@ def price_requirements(
     source: str = "<problem>",
     time_limit: float | None = None,
 ) -> RequirementReport:
-    """Solve with and without the mandated targets (the file's own requirements dropped)."""
-    free = solve(
-        problem, top=top, requirements=Requirements(), source=source, time_limit=time_limit
-    )
-    mandated = solve(
-        problem, top=top, requirements=requirements, source=source, time_limit=time_limit
-    )
+    """Solve with and without the mandated targets (the file's own requirements dropped).
+
+    ``time_limit`` bounds both solves together (one wall-clock budget).
+    """
+    deadline = None if time_limit is None else time.perf_counter() + time_limit
+    free = solve(problem, top=top, requirements=Requirements(), source=source, deadline=deadline)
+    mandated = solve(problem, top=top, requirements=requirements, source=source, deadline=deadline)
     return RequirementReport(requirements, free, mandated)
 
 

@@ -6,6 +6,8 @@ and returns a :class:`Solution` whose every figure comes from the evaluator.
 
 from __future__ import annotations
 
+import math
+import time
 from dataclasses import dataclass, field
 
 from optimizer.designs import DesignResult, evaluate_specs
@@ -14,8 +16,16 @@ from optimizer.problem import Problem, ProblemError, Requirements
 from optimizer.solver.exhaustive import exhaustive_search
 from optimizer.solver.infeasibility import explain_infeasible, explain_requirements
 from optimizer.solver.refine import refine_targets
-from optimizer.solver.search import SearchOutcome, milp_search, profit_bound, relative_gap
+from optimizer.solver.search import (
+    PROFIT_RTOL,
+    SearchOutcome,
+    milp_search,
+    profit_bound,
+    relative_gap,
+    tie_tolerance,
+)
 from optimizer.solver.selection import selection_specs
+from optimizer.solver.verify import verify_solution
 
 METHODS = ("milp", "exhaustive")
 
@@ -34,6 +44,9 @@ class Solution:
     log: list[str]
     difference: list[dict] = field(default_factory=list)
     targets_refined: bool = False  # winner's defect targets refined beyond the levels
+    proof: str = ""  # what the claim covers, in words
+    tie_tolerance: float = 0.0  # money within which designs count as tied
+    refined_gain: float = 0.0  # profit the continuous refinement added beyond the proof
 
     @property
     def best(self) -> DesignResult:
@@ -48,6 +61,9 @@ class Solution:
             "seconds": self.seconds,
             "stats": self.stats,
             "targets_refined": self.targets_refined,
+            "proof": self.proof,
+            "tie_tolerance": self.tie_tolerance,
+            "refined_gain": self.refined_gain,
             "best": self.designs[0].to_dict(),
             "ranked": [d.to_dict() for d in self.designs],
             "difference_to_runner_up": self.difference,
@@ -89,64 +105,132 @@ def solve(
     candidate_cache: dict | None = None,
     requirements: Requirements | None = None,
     refine: bool = True,
+    deadline: float | None = None,
 ) -> Solution:
     """Find the most profitable design(s) over every admissible choice in the problem.
 
-    ``candidate_cache`` (a dict the caller keeps) lets several solves of problems that
-    differ only in the market section share their priced candidate dies.
+    ``time_limit`` (seconds from this call) or ``deadline`` (a `time.perf_counter`
+    instant, for callers that share one budget over several solves) bound the whole
+    solve, pricing included. ``candidate_cache`` (a dict the caller keeps) lets several
+    solves of problems that differ only in the market section share their priced
+    candidate dies. Every design is checked against the problem's rules and mandates,
+    and a proven answer against its bound, before it is returned.
     """
+    if time_limit is not None:
+        limit = time.perf_counter() + time_limit
+        deadline = limit if deadline is None else min(deadline, limit)
+    need = requirements if requirements is not None else problem.requirements
     evaluator = Evaluator(problem)
     if method == "milp":
         outcome: SearchOutcome = milp_search(
             evaluator,
             top=top,
-            time_limit=time_limit,
+            deadline=deadline,
             candidate_cache=candidate_cache,
             requirements=requirements,
         )
     elif method == "exhaustive":
-        outcome = exhaustive_search(evaluator, top=top, requirements=requirements)
+        outcome = exhaustive_search(
+            evaluator, top=top, requirements=requirements, deadline=deadline
+        )
     else:
         raise ValueError(f"unknown method {method!r}; use one of {METHODS}")
     if not outcome.ranked:
-        need = requirements if requirements is not None else problem.requirements
         if outcome.proven and need.any():
             reason = explain_requirements(evaluator, need)
             if reason is not None:
                 raise ProblemError(source, "requirements", reason)
         if outcome.proven:
             raise ProblemError(source, "constraints", explain_infeasible(evaluator))
-        raise ProblemError(source, "", "no design found within the time limit; raise --time-limit")
+        raise ProblemError(
+            source,
+            "--time-limit",
+            "no design found within the time limit "
+            f"({outcome.seconds:.1f} s spent, {outcome.stats.get('candidate_dies', 0)} "
+            "candidate dies priced); raise --time-limit",
+        )
     designs = []
-    refined = False
+    refined_gain = 0.0
     for rank, item in enumerate(outcome.ranked, start=1):
         cset = outcome.candidates[item.selection.packaging_index]
         specs = selection_specs(evaluator, cset, item.selection)
         packaging = problem.packaging[item.selection.packaging_index].name
         result = evaluate_specs(evaluator, specs, packaging, f"rank{rank}", source)
         if refine and rank == 1 and _has_continuous_targets(problem, specs):
-            _, better = refine_targets(evaluator, specs, packaging, "rank1")
-            if better.profit > result.profit:
-                result, refined = better, True
+            _, better = refine_targets(evaluator, specs, packaging, "rank1", requirements=need)
+            # gains within float noise of the profit are no refinement
+            if better.profit > result.profit + PROFIT_RTOL * abs(result.profit):
+                refined_gain = better.profit - result.profit
+                result = better
         designs.append(result)
     difference = explain_difference(designs[0], designs[1]) if len(designs) > 1 else []
-    if refined:
+    if refined_gain > 0:
         outcome.log.append(
             f"winner's defect-density targets refined continuously: profit {designs[0].profit:.10g}"
+            f" (+{refined_gain:.6g} over the best at the stated levels)"
         )
+    bound = profit_bound(outcome, evaluator)
+    proven_profit = outcome.ranked[0].profit
+    tolerance = tie_tolerance(
+        problem.market.unit_price * problem.market.volume, outcome.ranked[0].total_cost
+    )
+    verify_solution(
+        problem,
+        designs,
+        need,
+        proven=outcome.proven,
+        bound_profit=bound,
+        proven_profit=proven_profit,
+        tolerance=tolerance,
+    )
     gap = relative_gap(outcome, evaluator)
     return Solution(
         designs=designs,
         method=outcome.method,
         proven_optimal=outcome.proven,
-        profit_bound=profit_bound(outcome, evaluator),
+        profit_bound=bound,
         gap=0.0 if outcome.proven else gap,
         seconds=outcome.seconds,
         stats=outcome.stats,
         log=outcome.log,
         difference=difference,
-        targets_refined=refined,
+        targets_refined=refined_gain > 0,
+        proof=proof_statement(problem, outcome, tolerance, refined_gain),
+        tie_tolerance=tolerance,
+        refined_gain=refined_gain,
     )
+
+
+def proof_statement(
+    problem: Problem, outcome: SearchOutcome, tolerance: float, refined_gain: float
+) -> str:
+    """What the answer's claim covers, in words."""
+    levels = any(
+        p.defect_reduction is not None and p.defect_reduction.form == "log_ratio"
+        for p in problem.process
+    )
+    if outcome.proven:
+        text = (
+            f"proven optimal ({outcome.method}): no admissible design is more profitable by "
+            f"more than {tolerance:.3g} {problem.market.currency} (designs closer count as "
+            "ties)"
+        )
+        if levels:
+            text += ", with defect-density targets at the levels each curve lists"
+    elif math.isfinite(outcome.bound_total_cost):
+        text = (
+            "not proven: stopped at the time limit; the profit bound holds for every "
+            "design, and the gap is measured to it"
+        )
+    else:
+        text = "not proven: stopped at the time limit before any bound was found"
+    if refined_gain > 0:
+        text += (
+            f"; the winner's targets were then refined continuously, adding "
+            f"{refined_gain:.6g} {problem.market.currency} of profit, which the proof does "
+            "not cover"
+        )
+    return text
 
 
 __all__ = ["METHODS", "Solution", "explain_difference", "solve"]

@@ -5,12 +5,14 @@ on every process with every combination of the spare-unit and array-repair choic
 blocks it carries; all of them are priced by the evaluator in one call per packaging
 option (interface area depends on the packaging). Variants of one content that are
 dominated in every respect that matters later (cost per passed die, defect level, NRE,
-area) are dropped: swapping a dominated die for its dominator never makes a design worse.
+area, salvage-bin yield) are dropped: swapping a dominated die for its dominator never
+makes a design worse.
 """
 
 from __future__ import annotations
 
 import itertools
+import time
 from dataclasses import dataclass
 
 import numpy as np
@@ -164,6 +166,40 @@ def _variants(evaluator: Evaluator, contents: np.ndarray, packaging) -> tuple[Di
 
 
 _PARETO_CHUNK = 4_000_000
+_PRICE_CHUNK = 50_000
+
+
+class OutOfTime(Exception):
+    """The wall-clock deadline passed while candidate dies were being priced."""
+
+
+def _price_in_chunks(evaluator: Evaluator, batch: DieBatch, deadline: float | None) -> DiePrices:
+    """Price a batch, a slice at a time when a deadline has to be watched."""
+    if deadline is None or len(batch) <= _PRICE_CHUNK:
+        if deadline is not None and time.perf_counter() > deadline:
+            raise OutOfTime
+        return evaluator.price_dies(batch)
+    parts = []
+    for first in range(0, len(batch), _PRICE_CHUNK):
+        if time.perf_counter() > deadline:
+            raise OutOfTime
+        rows = np.arange(first, min(first + _PRICE_CHUNK, len(batch)))
+        parts.append(evaluator.price_dies(_take_batch(batch, rows)))
+    return DiePrices(
+        **{
+            name: np.concatenate([getattr(part, name) for part in parts])
+            for name in DiePrices.__dataclass_fields__
+        }
+    )
+
+
+def _take_batch(batch: DieBatch, rows: np.ndarray) -> DieBatch:
+    return DieBatch(
+        **{
+            name: (value[rows] if isinstance(value, np.ndarray) else value)
+            for name, value in vars(batch).items()
+        }
+    )
 
 
 def _row_groups(rows: np.ndarray) -> np.ndarray:
@@ -227,12 +263,14 @@ def build_candidates(
     prune: bool = True,
     depth: int = 1,
     requirements: Requirements | None = None,
+    deadline: float | None = None,
 ) -> CandidateSet:
     """Price every admissible candidate die for one packaging option.
 
     With ``prune`` (the solver's default) variants of a content dominated by ``depth``
     others (the number of ranked designs wanted) are dropped; the exhaustive reference
-    keeps them all.
+    keeps them all. Past ``deadline`` (a `time.perf_counter` instant) pricing stops
+    with :class:`OutOfTime`.
     """
     problem = evaluator.problem
     packaging = problem.packaging[packaging_index]
@@ -251,15 +289,10 @@ def build_candidates(
     )
     if not fits.all():
         keep = np.flatnonzero(fits)
-        batch = DieBatch(
-            **{
-                name: (value[keep] if isinstance(value, np.ndarray) else value)
-                for name, value in vars(batch).items()
-            }
-        )
+        batch = _take_batch(batch, keep)
         extra = {name: value[keep] for name, value in extra.items()}
     process, inst, spare, repair = batch.process, batch.instances, batch.spares, batch.repairs
-    prices = evaluator.price_dies(batch)
+    prices = _price_in_chunks(evaluator, batch, deadline)
     ok = (
         prices.fits_reticle
         & (prices.gross_dies_per_wafer > 0)
@@ -283,12 +316,16 @@ def build_candidates(
     curve = np.array([p.defect_reduction is not None for p in problem.process])
     spend_key = np.where(curve[process[idx]], 1 + process[idx] * 1000 + extra["level"][idx], 0)
     group = _row_groups(np.column_stack([inst[idx], spend_key]))
+    # every term of the profit a die enters: its cost, its test escapes, its NRE, its
+    # area (carrier cost) and, for one-die products, the partly good dies each salvage
+    # bin takes (more is better, so negated)
     metrics = np.column_stack(
         [
             prices.cost_per_passed_die[idx],
             -prices.log1m_defect_level[idx],
             prices.nre[idx],
             prices.area_mm2[idx],
+            -prices.salvage_per_good[idx],
         ]
     )
     if prune:

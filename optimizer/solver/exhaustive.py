@@ -19,7 +19,12 @@ import numpy as np
 
 from optimizer.evaluator import Evaluator
 from optimizer.problem import Requirements
-from optimizer.solver.candidates import CandidateSet, build_candidates, enumerate_contents
+from optimizer.solver.candidates import (
+    CandidateSet,
+    OutOfTime,
+    build_candidates,
+    enumerate_contents,
+)
 from optimizer.solver.search import RankedSelection, SearchOutcome
 from optimizer.solver.selection import Selection
 
@@ -84,9 +89,16 @@ def _slots(assign: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def exhaustive_search(
-    evaluator: Evaluator, top: int = 1, requirements: Requirements | None = None
+    evaluator: Evaluator,
+    top: int = 1,
+    requirements: Requirements | None = None,
+    deadline: float | None = None,
 ) -> SearchOutcome:
-    """Price every complete design and return the ``top`` best (exact, no proof needed)."""
+    """Price every complete design and return the ``top`` best (exact, no proof needed).
+
+    Past ``deadline`` (a `time.perf_counter` instant) it stops between batches and
+    returns the best designs priced so far, unproven and without a bound.
+    """
     start = time.perf_counter()
     problem = evaluator.problem
     market = problem.market
@@ -96,42 +108,93 @@ def exhaustive_search(
     best: list[tuple[float, Selection]] = []
     candidates: dict[int, CandidateSet] = {}
     designs = 0
-    for g, packaging in enumerate(problem.packaging):
-        cset = build_candidates(evaluator, g, contents, prune=False, requirements=requirements)
-        candidates[g] = cset
-        if len(cset) == 0:
-            continue
-        keys = [tuple(int(v) for v in row) for row in cset.instances]
-        variants: dict[tuple, list[int]] = {}
-        for i, key in enumerate(keys):
-            variants.setdefault(key, []).append(i)
-        n_max = min(packaging.max_dies, problem.constraints.max_dies)
-        buffers: dict[int, list[np.ndarray]] = {}
-        for partition in multiset_partitions(total, list(variants), n_max):
-            groups = [(np.array(variants[key]), mult) for key, mult in _group_counts(partition)]
-            rows = _assignments(groups)
-            buffers.setdefault(rows.shape[1], []).append(rows)
-            if sum(len(r) for r in buffers[rows.shape[1]]) >= CHUNK:
-                designs += _price_batch(
-                    evaluator, cset, np.concatenate(buffers.pop(rows.shape[1])), top, revenue, best
-                )
-        for width in list(buffers):
-            designs += _price_batch(
-                evaluator, cset, np.concatenate(buffers.pop(width)), top, revenue, best
+    stopped = False
+    try:
+        for g in range(len(problem.packaging)):
+            designs += _search_packaging(
+                evaluator,
+                g,
+                contents,
+                total,
+                top,
+                revenue,
+                best,
+                candidates,
+                requirements,
+                deadline,
             )
+    except OutOfTime:
+        stopped = True
     best.sort(key=lambda item: (item[0], item[1]))
     ranked = [RankedSelection(sel, cost, revenue - cost) for cost, sel in best[:top]]
-    bound = ranked[0].total_cost if ranked else math.inf
+    if stopped:
+        bound = -math.inf
+    else:
+        bound = ranked[0].total_cost if ranked else math.inf
+    log = [f"priced {designs} complete designs"]
+    if stopped:
+        log.append("stopped at the time limit before every design was priced")
     return SearchOutcome(
         ranked=ranked,
         candidates=candidates,
         bound_total_cost=bound,
-        proven=True,
+        proven=not stopped,
         method="exhaustive",
         seconds=time.perf_counter() - start,
-        log=[f"priced {designs} complete designs"],
-        stats={"designs_priced": designs},
+        log=log,
+        stats={"designs_priced": designs, "candidate_dies": sum(map(len, candidates.values()))},
     )
+
+
+def _search_packaging(
+    evaluator: Evaluator,
+    g: int,
+    contents: np.ndarray,
+    total: tuple[int, ...],
+    top: int,
+    revenue: float,
+    best: list[tuple[float, Selection]],
+    candidates: dict[int, CandidateSet],
+    requirements: Requirements | None,
+    deadline: float | None,
+) -> int:
+    """Price every design on packaging ``g`` into ``best``; returns how many."""
+    problem = evaluator.problem
+    packaging = problem.packaging[g]
+    cset = build_candidates(
+        evaluator, g, contents, prune=False, requirements=requirements, deadline=deadline
+    )
+    candidates[g] = cset
+    if len(cset) == 0:
+        return 0
+    keys = [tuple(int(v) for v in row) for row in cset.instances]
+    variants: dict[tuple, list[int]] = {}
+    for i, key in enumerate(keys):
+        variants.setdefault(key, []).append(i)
+    n_max = min(packaging.max_dies, problem.constraints.max_dies)
+    designs = 0
+    buffers: dict[int, list[np.ndarray]] = {}
+    buffered: dict[int, int] = {}
+
+    def flush(width: int) -> int:
+        if deadline is not None and time.perf_counter() > deadline:
+            raise OutOfTime
+        buffered.pop(width, None)
+        return _price_batch(evaluator, cset, np.concatenate(buffers.pop(width)), top, revenue, best)
+
+    for partition in multiset_partitions(total, list(variants), n_max):
+        groups = [(np.array(variants[key]), mult) for key, mult in _group_counts(partition)]
+        if deadline is not None and time.perf_counter() > deadline:
+            raise OutOfTime
+        rows = _assignments(groups)
+        width = rows.shape[1]
+        buffers.setdefault(width, []).append(rows)
+        buffered[width] = buffered.get(width, 0) + len(rows)
+        if buffered[width] >= CHUNK:
+            designs += flush(width)
+    for width in list(buffers):
+        designs += flush(width)
+    return designs
 
 
 def _price_batch(

@@ -48,6 +48,11 @@ from optimizer.problem import Packaging
 from optimizer.solver.candidates import CandidateSet
 from optimizer.solver.selection import Selection
 
+# Bounds read from the integer-program solver are lowered by this share of their size
+# before use: HiGHS works to feasibility tolerances of 1e-9 on a scaled objective, so its
+# bound is trusted only to that precision, never taken as exact.
+SOLVER_RTOL = 1e-9
+
 
 @contextlib.contextmanager
 def _stdout_silenced():
@@ -583,7 +588,12 @@ def relax(
         if status != highspy.HighsModelStatus.kOptimal:
             if status == highspy.HighsModelStatus.kTimeLimit:
                 break
-            return RelaxedBound(math.inf, np.zeros(n), np.ones(n, dtype=bool), False)
+            if status == highspy.HighsModelStatus.kInfeasible and not generate:
+                # the whole program is present: infeasible is a proof
+                return RelaxedBound(math.inf, np.zeros(n), np.ones(n, dtype=bool), False)
+            # any other outcome proves nothing: keep the bound from the last optimal
+            # restricted program, or none, so that the program stays open
+            break
         solution = h.getSolution()
         row_dual = np.asarray(solution.row_dual, dtype=float) * scale
         reduced_all = program.cost - program.matrix.T @ row_dual
@@ -807,8 +817,16 @@ def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
     solver = Highs()
     solver.config.load_solutions = False
     solver.config.raise_exception_on_nonoptimal_result = False
-    solver.config.rel_gap = 1e-9
-    solver.config.abs_gap = 1e-6 / scale
+    solver.config.rel_gap = 1e-10
+    solver.config.abs_gap = 0.0
+    # tight feasibility tolerances: the search lowers the bound read back by SOLVER_RTOL,
+    # which must cover the solver's own error
+    for name in (
+        "mip_feasibility_tolerance",
+        "primal_feasibility_tolerance",
+        "dual_feasibility_tolerance",
+    ):
+        solver.config.solver_options[name] = 1e-9
     return SubProblem(columns, keep, m, solver, scale=scale)
 
 
@@ -834,7 +852,9 @@ def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
         return
     bound = result.objective_bound
     if bound is not None and math.isfinite(bound):
-        sub.bound = max(sub.bound, float(bound) * sub.scale)
+        # trusted only to the solver's precision (see SOLVER_RTOL)
+        value = float(bound) * sub.scale
+        sub.bound = max(sub.bound, value - SOLVER_RTOL * abs(value))
     if result.incumbent_objective is None:
         sub.current = None
         if tc != TerminationCondition.maxTimeLimit:

@@ -17,7 +17,12 @@ import numpy as np
 
 from optimizer.evaluator import Evaluator
 from optimizer.problem import Requirements
-from optimizer.solver.candidates import CandidateSet, build_candidates, enumerate_contents
+from optimizer.solver.candidates import (
+    CandidateSet,
+    OutOfTime,
+    build_candidates,
+    enumerate_contents,
+)
 from optimizer.solver.milp import (
     Columns,
     RelaxedBound,
@@ -31,7 +36,16 @@ from optimizer.solver.milp import (
 )
 from optimizer.solver.selection import Selection, price_selections
 
-REL_TOL = 1e-9
+# Designs whose profits differ by less than this share of the best profit are ties: the
+# proof says no design is more profitable than the winner by more than that.
+PROFIT_RTOL = 1e-9
+
+
+def tie_tolerance(revenue: float, threshold_cost: float) -> float:
+    """Money within which two designs count as tied, at the current K-th best cost."""
+    if not math.isfinite(threshold_cost):
+        return 0.0
+    return PROFIT_RTOL * max(abs(revenue - threshold_cost), 1.0)
 
 
 @dataclass(frozen=True)
@@ -62,7 +76,7 @@ def _kth(values: list[float], k: int) -> float:
 def milp_search(
     evaluator: Evaluator,
     top: int = 1,
-    time_limit: float | None = None,
+    deadline: float | None = None,
     screen_columns: int = 200,
     candidate_cache: dict | None = None,
     requirements: Requirements | None = None,
@@ -73,6 +87,9 @@ def milp_search(
        costs. 2. Small integer programs over the most promising columns give exact
        incumbents. 3. Columns that cannot reach the K-th best exact cost are dropped and
        the full programs enumerate, cut and price until every bound clears it.
+
+    ``deadline`` is a `time.perf_counter` instant for the whole search, pricing of the
+    candidate dies included.
     """
     start = time.perf_counter()
     problem = evaluator.problem
@@ -90,14 +107,29 @@ def milp_search(
     cached = candidate_cache.get(key) if candidate_cache is not None else None
     contents = enumerate_contents(evaluator) if cached is None else None
     candidates: dict[int, CandidateSet] = {}
-    for g, packaging in enumerate(problem.packaging):
-        cset = (
-            cached[g]
-            if cached is not None
-            else build_candidates(evaluator, g, contents, depth=top, requirements=need)
+    try:
+        for g, packaging in enumerate(problem.packaging):
+            cset = (
+                cached[g]
+                if cached is not None
+                else build_candidates(
+                    evaluator, g, contents, depth=top, requirements=need, deadline=deadline
+                )
+            )
+            candidates[g] = cset
+            log.append(f"packaging {packaging.name}: {len(cset)} candidate dies after pruning")
+    except OutOfTime:
+        log.append("out of time while pricing candidate dies")
+        return SearchOutcome(
+            ranked=[],
+            candidates=candidates,
+            bound_total_cost=-math.inf,
+            proven=False,
+            method="milp",
+            seconds=time.perf_counter() - start,
+            log=log,
+            stats={"candidate_dies": int(sum(len(c) for c in candidates.values()))},
         )
-        candidates[g] = cset
-        log.append(f"packaging {packaging.name}: {len(cset)} candidate dies after pruning")
     if candidate_cache is not None:
         candidate_cache[key] = candidates
 
@@ -112,20 +144,37 @@ def milp_search(
         # infinite for an invalid product (carrier too large, clashing targets)
         exact[sel] = float(revenue - prices.profit[0])
 
-    deadline = None if time_limit is None else start + time_limit
-
     def remaining() -> float | None:
-        return None if time_limit is None else time_limit - (time.perf_counter() - start)
+        return None if deadline is None else deadline - time.perf_counter()
+
+    # until a first design is found, a fifth of the time left after pricing is kept for
+    # a short look at the most promising programs (below), so that a time limit returns
+    # a design with its gap rather than nothing, and still ends on time
+    reserve = 0.0 if deadline is None else 0.2 * max(deadline - time.perf_counter(), 0.0)
 
     def out_of_time() -> bool:
         left = remaining()
-        return left is not None and left <= 0
+        if left is None:
+            return False
+        if not any(math.isfinite(v) for v in exact.values()):
+            return left <= reserve
+        return left <= 0
+
+    def soft_deadline() -> float | None:
+        if deadline is None or any(math.isfinite(v) for v in exact.values()):
+            return deadline
+        return deadline - reserve
+
+    def budget() -> float | None:
+        soft = soft_deadline()
+        return None if soft is None else soft - time.perf_counter()
 
     def threshold() -> float:
         return _kth(list(exact.values()), top)
 
     def open_bound(value: float) -> bool:
-        return value < threshold() * (1 - REL_TOL) - 1e-6
+        limit = threshold()
+        return value < limit - tie_tolerance(revenue, limit)
 
     # one-die designs need no program: price them all at once for a first threshold
     for g, cset in candidates.items():
@@ -155,7 +204,7 @@ def milp_search(
                 continue
             # out of time, the die counts are listed below and left unexplored
             if not out_of_time():
-                joint_bound = relax(joint, stop_above=threshold(), deadline=deadline)
+                joint_bound = relax(joint, stop_above=threshold(), deadline=soft_deadline())
                 if not joint_bound.feasible or not open_bound(joint_bound.value):
                     log.append(f"packaging {packaging.name}: 2 to {n_max} dies closed together")
                     continue
@@ -185,7 +234,7 @@ def milp_search(
             timed_out = True
             unexplored.append(cheap)
             continue
-        bound = relax(columns, row_hint=hint, stop_above=threshold(), deadline=deadline)
+        bound = relax(columns, row_hint=hint, stop_above=threshold(), deadline=soft_deadline())
         columns.release_arrays()  # its integer program needs only the columns
         if not bound.feasible or not open_bound(bound.value):
             continue
@@ -201,7 +250,7 @@ def milp_search(
         if _screen(bound, usable, threshold()).size > screen_columns and few.size < usable.sum():
             scout = build_subproblem(columns, few)
             for _ in range(top):
-                solve_round(scout, remaining())
+                solve_round(scout, budget())
                 price(scout)
                 if scout.current is None or out_of_time():
                     break
@@ -210,7 +259,7 @@ def milp_search(
         sub.bound = value
         sub.log.append(f"relaxation {value:.8g}; {sub.keep.size} of {columns.n_cols} columns kept")
         subs.append(sub)
-        solve_round(sub, remaining())
+        solve_round(sub, budget())
         price(sub)
     log.append(f"{len(relaxed)} relaxations kept, {time.perf_counter() - start:.2f} s")
     while not timed_out:
@@ -223,7 +272,7 @@ def milp_search(
         if out_of_time():
             timed_out = True
             break
-        solve_round(sub, remaining())
+        solve_round(sub, budget())
         price(sub)
     if timed_out and not any(math.isfinite(v) for v in exact.values()):
         # out of time before any design: a short look at the most promising program so
@@ -232,14 +281,16 @@ def milp_search(
             (quick, columns, None) for quick, columns, _ in programs
         ]
         for _, columns, bound in pending[:3]:
+            if remaining() <= 0:
+                break
             if bound is None:
-                bound = relax(columns, deadline=time.perf_counter() + 10.0)
-                if not bound.feasible:
+                bound = relax(columns, deadline=deadline)
+                if not bound.feasible or not math.isfinite(bound.value):
                     continue
             order = np.argsort(bound.reduced_cost, kind="stable")
             few = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
             scout = build_subproblem(columns, few)
-            solve_round(scout, 10.0)
+            solve_round(scout, remaining())
             price(scout)
             if any(math.isfinite(v) for v in exact.values()):
                 break
@@ -285,7 +336,8 @@ def milp_search(
 def _screen(bound: RelaxedBound, usable: np.ndarray, threshold: float) -> np.ndarray:
     """Columns that may still rank: a column at zero whose reduced cost lifts the bound
     above the threshold is in no selection that could."""
-    limit = threshold * (1 + REL_TOL) + 1e-6
+    # conservative: keeps every column that could tie as well as those that could win
+    limit = threshold * (1 + PROFIT_RTOL) + 1e-6
     lifted = bound.value + bound.reduced_cost > limit
     return np.flatnonzero(usable & ~(bound.at_zero & lifted))
 
