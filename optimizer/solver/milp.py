@@ -8,10 +8,13 @@ cost per good unit is
     L(x) = sum_c x_c ln(1 - DL_c) <= 0,
 
 (k_c cost per passed die, DL_c its defect level, S the carrier cost per good one as a
-function of total die area). Because exp(-L) >= 1 - L, N exp(-L) >= N + N (-L), and
-N (-L) = sum_c N (-ln(1 - DL_c)) x_c >= sum_c N_c (-ln(1 - DL_c)) x_c, where N_c is the
-least N of any selection holding column c: its own dies, the cheapest possible die for
-every other one, the fixed costs and the carrier's floor. S is replaced by a convex
+function of total die area). With t = -L = sum_i t_i over the chosen columns i,
+exp(t) - 1 = sum_i t_i phi(t) with phi(x) = (e^x - 1) / x increasing, and t >= tau_i, the
+column's own escapes plus the least any other die could add; so
+N exp(-L) >= N + sum_i N_i t_i phi(tau_i), where N_i is the least N of any selection
+holding column i: its own dies, the cheapest possible die for every other one, the
+fixed costs and the carrier's floor. (With phi = 1 this is the tangent exp(t) >= 1 + t,
+which is loose when test escapes are several percent.) S is replaced by a convex
 piecewise-linear under-estimator. The resulting linear objective is a valid lower bound
 of the total cost V x cost per good unit + NRE of every selection.
 
@@ -257,8 +260,15 @@ def build_columns(
     ell = prices.log1m_defect_level[col_c]
     # N >= this column's own dies + the cheapest possible others + fixed + carrier floor
     cheapest = float(prices.cost_per_passed_die[cand].min())
-    n_lo = col_k * k_c + np.maximum(n_dies - col_k, 0) * cheapest + fixed + carrier_floor
-    cost = factor * col_k * (k_c - n_lo * ell) + prices.nre[col_c]
+    others = np.maximum(n_dies - col_k, 0)
+    n_lo = col_k * k_c + others * cheapest + fixed + carrier_floor
+    # Test escapes: with t_i = -k ln(1 - DL) >= 0 per column and t their sum,
+    # e^t - 1 = sum_i t_i phi(t) with phi(x) = (e^x - 1) / x increasing, and every
+    # selection holding column i has t >= tau_i = t_i + (its other dies' least escape),
+    # so N (e^t - 1) >= sum_i n_lo_i t_i phi(tau_i): tight when the other dies escape least.
+    t_col = -col_k * ell
+    tau = t_col + others * float(-prices.log1m_defect_level[cand].max())
+    cost = factor * (col_k * k_c + n_lo * t_col * _expm1_ratio(tau)) + prices.nre[col_c]
     constant = factor * fixed + packaging.design_cost
     if shape.carrier_slopes is None:
         constant += factor * packaging.carrier_cost
@@ -274,6 +284,14 @@ def build_columns(
         span=span,
         like=like if like is not None and like.shape is shape else None,
     )
+
+
+def _expm1_ratio(x: np.ndarray) -> np.ndarray:
+    """(e^x - 1) / x, equal to 1 at x = 0 (no loss of digits for small x)."""
+    x = np.asarray(x, dtype=float)
+    small = np.abs(x) < 1e-8
+    safe = np.where(small, 1.0, x)
+    return np.where(small, 1.0 + 0.5 * x, np.expm1(safe) / safe)
 
 
 def _column_shape(
