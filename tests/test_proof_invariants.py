@@ -152,3 +152,27 @@ def test_verify_refuses_a_design_below_a_mandate_and_a_profit_above_its_bound():
         verify_solution(problem, [best], Requirements(), True, best.profit * 0.99, best.profit, 0.0)
     wrong_blocks = replace(best, dies=[replace(best.dies[0], blocks={"tile": 7})])
     assert any("placed 7 times" in line for line in design_breaks(problem, wrong_blocks, need))
+
+
+def test_a_time_limit_during_pricing_still_reports_the_best_one_die_design(monkeypatch):
+    # One-die packagings are priced first; when the deadline ends the pricing of the
+    # others, the best one-die design is reported, unproven and without a bound.
+    from optimizer.solver import search
+    from optimizer.solver.candidates import OutOfTime
+
+    real = search.build_candidates
+    problem = parse_problem(tomllib.loads(TINY_PROBLEM), "tiny.toml")
+
+    def priced_only_single_die(evaluator, g, *args, **kwargs):
+        if problem.packaging[g].kind != "single_die":
+            raise OutOfTime
+        return real(evaluator, g, *args, **kwargs)
+
+    monkeypatch.setattr(search, "build_candidates", priced_only_single_die)
+    cut = solve(problem, top=1, deadline=time.perf_counter() + 60)
+    monkeypatch.undo()
+    assert not cut.proven_optimal
+    assert cut.best.n_dies == 1 and cut.best.packaging == "single"
+    assert cut.profit_bound == math.inf and "not proven" in cut.proof
+    full = solve(problem, top=1)
+    assert cut.best.profit <= full.best.profit * (1 + 1e-12)

@@ -145,9 +145,8 @@ def solve(
         raise ProblemError(
             source,
             "--time-limit",
-            "no design found within the time limit "
-            f"({outcome.seconds:.1f} s spent, {outcome.stats.get('candidate_dies', 0)} "
-            "candidate dies priced); raise --time-limit",
+            f"no design found within the time limit ({outcome.seconds:.1f} s spent); "
+            "raise --time-limit",
         )
     designs = []
     refined_gain = 0.0
@@ -157,7 +156,9 @@ def solve(
         packaging = problem.packaging[item.selection.packaging_index].name
         result = evaluate_specs(evaluator, specs, packaging, f"rank{rank}", source)
         if refine and rank == 1 and _has_continuous_targets(problem, specs):
-            _, better = refine_targets(evaluator, specs, packaging, "rank1", requirements=need)
+            _, better = refine_targets(
+                evaluator, specs, packaging, "rank1", requirements=need, deadline=deadline
+            )
             # gains within float noise of the profit are no refinement
             if better.profit > result.profit + PROFIT_RTOL * abs(result.profit):
                 refined_gain = better.profit - result.profit

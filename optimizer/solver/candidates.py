@@ -166,7 +166,7 @@ def _variants(evaluator: Evaluator, contents: np.ndarray, packaging) -> tuple[Di
 
 
 _PARETO_CHUNK = 4_000_000
-_PRICE_CHUNK = 50_000
+_PRICE_CHUNK = 200_000
 
 
 class OutOfTime(Exception):
@@ -174,17 +174,29 @@ class OutOfTime(Exception):
 
 
 def _price_in_chunks(evaluator: Evaluator, batch: DieBatch, deadline: float | None) -> DiePrices:
-    """Price a batch, a slice at a time when a deadline has to be watched."""
-    if deadline is None or len(batch) <= _PRICE_CHUNK:
-        if deadline is not None and time.perf_counter() > deadline:
-            raise OutOfTime
+    """Price a batch, a slice at a time when a deadline has to be watched.
+
+    Slices start small and grow to about a tenth of a second of work each, since dies
+    with redundancy price far slower than plain ones.
+    """
+    if deadline is not None and time.perf_counter() > deadline:
+        raise OutOfTime
+    if deadline is None:
         return evaluator.price_dies(batch)
     parts = []
-    for first in range(0, len(batch), _PRICE_CHUNK):
-        if time.perf_counter() > deadline:
-            raise OutOfTime
-        rows = np.arange(first, min(first + _PRICE_CHUNK, len(batch)))
+    first, size = 0, 1_000
+    while first < len(batch):
+        rows = np.arange(first, min(first + size, len(batch)))
+        began = time.perf_counter()
         parts.append(evaluator.price_dies(_take_batch(batch, rows)))
+        now = time.perf_counter()
+        if now > deadline:
+            raise OutOfTime
+        first += rows.size
+        rate = rows.size / max(now - began, 1e-6)
+        size = int(min(max(0.1 * rate, 1_000), _PRICE_CHUNK))
+    if len(parts) == 1:
+        return parts[0]
     return DiePrices(
         **{
             name: np.concatenate([getattr(part, name) for part in parts])

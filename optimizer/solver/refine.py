@@ -12,6 +12,7 @@ the search stays inside it.
 from __future__ import annotations
 
 import math
+import time
 from dataclasses import replace
 
 from scipy.optimize import minimize_scalar
@@ -38,9 +39,11 @@ def refine_targets(
     name: str,
     sweeps: int = 2,
     requirements: Requirements | None = None,
+    deadline: float | None = None,
 ) -> tuple[list[DieSpec], DesignResult]:
     """Best continuous defect-density targets for a fixed design (specs, packaging),
-    within the mandated die yield and defect level (the problem's own by default)."""
+    within the mandated die yield and defect level (the problem's own by default);
+    past ``deadline`` it returns the best found so far."""
     problem = evaluator.problem
     need = requirements if requirements is not None else problem.requirements
 
@@ -56,6 +59,8 @@ def refine_targets(
     for _ in range(sweeps):
         improved = False
         for pname in used:
+            if deadline is not None and time.perf_counter() > deadline:
+                return best_specs, best
             process = problem.process[problem.process_index(pname)]
             curve = process.defect_reduction
             if curve is None or curve.form != "log_ratio":

@@ -107,8 +107,16 @@ def milp_search(
     cached = candidate_cache.get(key) if candidate_cache is not None else None
     contents = enumerate_contents(evaluator) if cached is None else None
     candidates: dict[int, CandidateSet] = {}
+    # one-die packagings first: their few candidates give a design to report even when
+    # the time limit ends the pricing of the others
+    order = sorted(
+        range(len(problem.packaging)),
+        key=lambda g: (problem.packaging[g].kind != "single_die", g),
+    )
+    pricing_cut = False
     try:
-        for g, packaging in enumerate(problem.packaging):
+        for g in order:
+            packaging = problem.packaging[g]
             cset = (
                 cached[g]
                 if cached is not None
@@ -119,18 +127,10 @@ def milp_search(
             candidates[g] = cset
             log.append(f"packaging {packaging.name}: {len(cset)} candidate dies after pruning")
     except OutOfTime:
-        log.append("out of time while pricing candidate dies")
-        return SearchOutcome(
-            ranked=[],
-            candidates=candidates,
-            bound_total_cost=-math.inf,
-            proven=False,
-            method="milp",
-            seconds=time.perf_counter() - start,
-            log=log,
-            stats={"candidate_dies": int(sum(len(c) for c in candidates.values()))},
-        )
-    if candidate_cache is not None:
+        pricing_cut = True
+        missing = [problem.packaging[g].name for g in order if g not in candidates]
+        log.append(f"out of time while pricing candidate dies of {', '.join(missing)}")
+    if candidate_cache is not None and not pricing_cut:
         candidate_cache[key] = candidates
 
     exact: dict[Selection, float] = {}
@@ -185,8 +185,9 @@ def milp_search(
             for sel, profit in zip(sels, prices.profit, strict=True):
                 exact[sel] = float(revenue - profit)
 
-    timed_out = False
-    unexplored: list[float] = []
+    timed_out = pricing_cut
+    # packagings whose candidates were not all priced: nothing is known of them
+    unexplored: list[float] = [-math.inf] if pricing_cut else []
     programs: list[tuple[float, Columns, np.ndarray | None]] = []
     n_programs = 0
     # Every packaging's die counts 2..n_max are first bounded together by one program.
@@ -194,7 +195,7 @@ def milp_search(
     # columns, so the joint program's duals bound it without a solve (`dual_bound`).
     for g, packaging in enumerate(problem.packaging):
         n_max = min(packaging.max_dies, problem.constraints.max_dies)
-        if n_max < 2 or len(candidates[g]) == 0:
+        if pricing_cut or n_max < 2 or len(candidates[g]) == 0:
             continue
         n_programs += n_max - 1
         joint_bound = joint = None
