@@ -1,29 +1,305 @@
 """The `dieplan` command line: a thin shell over the library.
 
-Commands parse options, call the library and hand results to report.py. A ProblemError
-becomes one line on stderr and exit code 2; nothing is written half-way.
+Commands parse options, call the library and hand results to report.py. Whatever the
+command, a bad input (file, option or environment) is one line
+``dieplan: WHERE: what is wrong; what to do`` on stderr and exit code 2; an answer that
+breaks its own checks is one ``internal error`` line and exit code 3; Ctrl-C or SIGTERM
+is one line and exit code 130 or 143. Nothing is written half-way: output paths are
+checked before any work and run folders appear whole or not at all.
+
+The error handling lives in :class:`OneLineGroup`, the click group of ``app``, so the
+installed ``dieplan`` script (``optimizer.cli:app``) and tests through
+``typer.testing.CliRunner`` take the same path.
 """
 
 from __future__ import annotations
 
-import json
+import math
+import os
+import signal
 import sys
+import threading
+import warnings
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
-from typing import Annotated
+from typing import Annotated, Any, NoReturn
 
 import typer
 from rich.console import Console
+from rich.text import Text
+from typer import _click
+from typer.core import TyperGroup
 
 from optimizer import __version__, report
 from optimizer.designs import evaluate_design
 from optimizer.evaluator import Evaluator
-from optimizer.outputs import copy_writer, text_writer, write_run_folder
+from optimizer.invariants import InvariantViolation
+from optimizer.outputs import (
+    check_results_dir,
+    copy_writer,
+    figure_writer,
+    json_text,
+    short,
+    text_writer,
+    write_run_folder,
+)
 from optimizer.problem import ProblemError, load_problem
 
+EXIT_BAD_INPUT = 2
+EXIT_INTERNAL = 3
+BUG = "this is a bug, please report it with the problem file"
+
+
+# ---------------------------------------------------------------- one-line errors
+class Stopped(KeyboardInterrupt):
+    """SIGTERM, raised where the program is so that cleanup runs as for Ctrl-C."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+
+def say(line: str) -> None:
+    """One line on stderr, whatever the message holds."""
+    text = " ".join(str(line).split())
+    print(f"dieplan: {text}", file=sys.stderr, flush=True)
+
+
+def _raw_value(param: Any, argv: list[str]) -> str | None:
+    """What the user typed for ``param`` (click does not keep it on the error)."""
+    opts = [*getattr(param, "opts", []), *getattr(param, "secondary_opts", [])]
+    if getattr(param, "param_type_name", "") != "option":
+        return None
+    for i, token in enumerate(argv):
+        for opt in opts:
+            if token == opt:
+                values = argv[i + 1 : i + 1 + max(1, param.nargs)]
+                return " ".join(values) if values else None
+            if opt.startswith("--") and token.startswith(opt + "="):
+                return token[len(opt) + 1 :]
+            if not opt.startswith("--") and token.startswith(opt) and len(token) > len(opt):
+                return token[len(opt) :]
+    return None
+
+
+def _number_problem(param: Any, raw: str) -> tuple[str, str] | None:
+    """(what is wrong, what to do) for a number option, or None if not a number option."""
+    kind = getattr(getattr(param, "type_descriptor", None), "annotation", None)
+    if kind not in (int, float):
+        return None
+    low, high = getattr(param, "min", None), getattr(param, "max", None)
+    noun = "a whole number" if kind is int else "a number"
+    bounds = []
+    if low is not None:
+        bounds.append(f"at least {low:g}")
+    if high is not None:
+        bounds.append(f"at most {high:g}")
+    fix = f"give {noun}" + (f" {' and '.join(bounds)}" if bounds else "")
+    try:
+        value = kind(raw.strip())
+    except ValueError:
+        return f"'{short(raw)}' is not {noun}", fix
+    if isinstance(value, float) and not math.isfinite(value):
+        return f"'{short(raw)}' is not a finite number", fix
+    if low is not None and value < low:
+        return f"{short(raw)} is below {low:g}", fix
+    if high is not None and value > high:
+        return f"{short(raw)} is above {high:g}", fix
+    return None
+
+
+def _name(param: Any) -> str:
+    opts = [o for o in getattr(param, "opts", []) if o.startswith("--")]
+    if opts:
+        return opts[0]
+    return (getattr(param, "name", None) or "argument").upper()
+
+
+def _lower(message: str) -> str:
+    message = message.rstrip(".")
+    return message[:1].lower() + message[1:]
+
+
+def _command_of(group: Any, argv: list[str]) -> tuple[Any, str]:
+    """The command the user ran (click attaches some errors to the group or to nothing)."""
+    for token in argv:
+        if token in group.commands:
+            return group.commands[token], f"dieplan {token}"
+        if not token.startswith("-"):
+            break
+    return group, "dieplan"
+
+
+def usage_line(error: Any, argv: list[str], group: Any) -> str:
+    """The one line for an option, argument or command click rejected."""
+    exc = _click.exceptions
+    command, path = _command_of(group, argv)
+    see = f"see '{path} --help'"
+    message = error.message or ""
+    names = ", ".join(group.commands)
+    if isinstance(error, exc.NoArgsIsHelpError):
+        return f"COMMAND: none given; use one of {names}; {see}"
+    if message.startswith("No such command"):
+        token = next((t for t in argv if not t.startswith("-")), "")
+        guess = message.partition("Did you mean ")[2].rstrip("?")
+        hint = f"did you mean {guess}? " if guess else ""
+        return f"{short(token)}: no such command; {hint}use one of {names}"
+    if isinstance(error, exc.NoSuchOption):
+        guess = sorted(error.possibilities or [])
+        hint = f"did you mean {' or '.join(guess)}? " if guess else ""
+        return f"{short(error.option_name)}: no such option of '{path}'; {hint}{see}"
+    if isinstance(error, exc.MissingParameter) and error.param is not None:
+        param = error.param
+        wanted = _lower(getattr(param, "help", None) or "a value")
+        what = f"{param.metavar}: " if param.nargs > 1 and param.metavar else "the "
+        return f"{_name(param)}: missing; give {what}{wanted}; {see}"
+    if isinstance(error, exc.BadParameter) and error.param is not None:
+        param = error.param
+        raw = _raw_value(param, argv)
+        found = _number_problem(param, raw) if raw is not None else None
+        if found is None:
+            value = f"'{short(raw)}': " if raw is not None else ""
+            return f"{_name(param)}: {value}{_lower(message)}; {see}"
+        wrong, fix = found
+        return f"{_name(param)}: {wrong}; {fix}"
+    if isinstance(error, exc.BadOptionUsage):
+        option = error.option_name
+        text = message.replace(f"Option '{option}' ", "").replace(f"Option {option!r} ", "")
+        return f"{short(option)}: {_lower(text)}; {see}"
+    if message.startswith("Got unexpected extra argument"):
+        extra = message.split(" (", 1)[-1].rstrip(".").removesuffix(")")
+        return f"{short(extra)}: unexpected extra argument(s) of '{path}'; {see}"
+    where = path.removeprefix("dieplan ") if path != "dieplan" else "dieplan"
+    return f"{where}: {_lower(message)}; {see}"
+
+
+@contextmanager
+def _sigterm_as_interrupt() -> Iterator[None]:
+    # SIGTERM would end the process on the spot, leaving worker processes and a
+    # temporary folder behind; as an exception it takes the same cleanup path as Ctrl-C
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def stop(signum: int, _frame: object) -> None:
+        raise Stopped(signum)
+
+    previous = signal.signal(signal.SIGTERM, stop)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+class OneLineGroup(TyperGroup):
+    """The app's click group: every error of every command ends in one line."""
+
+    def main(
+        self,
+        args: Any = None,
+        prog_name: str | None = None,
+        complete_var: str | None = None,
+        standalone_mode: bool = True,
+        **extra: Any,
+    ) -> Any:
+        argv = list(sys.argv[1:] if args is None else args)
+        try:
+            code = super().main(
+                args=argv,
+                prog_name="dieplan",
+                complete_var=complete_var,
+                standalone_mode=False,
+                **extra,
+            )
+            code = code if isinstance(code, int) else 0
+        except _click.exceptions.UsageError as error:
+            say(usage_line(error, argv, self))
+            code = EXIT_BAD_INPUT
+        except _click.exceptions.ClickException as error:
+            say(error.format_message())
+            code = getattr(error, "exit_code", 1)
+        except _click.exceptions.Abort:
+            say("aborted")
+            code = 1
+        if not standalone_mode:
+            return code
+        sys.exit(code)
+
+    def invoke(self, ctx: Any) -> Any:
+        with _sigterm_as_interrupt(), warnings.catch_warnings(record=True) as caught:
+            try:
+                result = super().invoke(ctx)
+            except ProblemError as error:
+                say(error.line())
+                raise typer.Exit(EXIT_BAD_INPUT) from None
+            except InvariantViolation as error:
+                say(f"internal error: {short(error, 300)}; {BUG}")
+                raise typer.Exit(EXIT_INTERNAL) from None
+            except Stopped as stop:
+                say(
+                    f"stopped by {signal.Signals(stop.signum).name} before finishing; nothing "
+                    "was left half-written; run the command again"
+                )
+                raise typer.Exit(128 + stop.signum) from None
+            except KeyboardInterrupt:
+                say(
+                    "interrupted (Ctrl-C) before finishing; nothing was left half-written; "
+                    "run the command again"
+                )
+                raise typer.Exit(130) from None
+            except MemoryError:
+                say("out of memory: the run is too large; use fewer --samples, --steps or --points")
+                raise typer.Exit(EXIT_BAD_INPUT) from None
+        # after success only: an error line must stand alone
+        for note in {str(w.message) for w in caught}:
+            say(f"note: {note}")
+        return result
+
+
+def fail(error: ProblemError) -> NoReturn:
+    """Stop the command with ``error`` (printed by :class:`OneLineGroup` as one line)."""
+    raise error
+
+
+def check_environment() -> None:
+    """Environment variables the library reads, checked before any work."""
+    raw = os.environ.get("DIEPLAN_COUNT_WORKERS")
+    if raw is None:
+        return
+    try:
+        ok = int(raw.strip()) >= 1
+    except ValueError:
+        ok = False
+    if not ok:
+        raise ProblemError(
+            "DIEPLAN_COUNT_WORKERS",
+            "",
+            f"'{short(raw)}' is not a whole number of 1 or more; set it to a thread count "
+            "such as 2, or unset it",
+        )
+
+
+def preflight(results_dir: Path | None = None) -> None:
+    """Checks that need no problem file: environment and output folder."""
+    check_environment()
+    if results_dir is not None:
+        check_results_dir(results_dir)
+
+
+def finite(value: float | None) -> float | None:
+    """Option callback: reject NaN and infinities, which no option means."""
+    if value is not None and not math.isfinite(value):
+        raise typer.BadParameter("not a finite number")
+    return value
+
+
 app = typer.Typer(
+    cls=OneLineGroup,
     help="Plan dies, processes, packaging and yield targets for the most profit. " + report.CAUTION,
     no_args_is_help=True,
     add_completion=False,
+    pretty_exceptions_enable=False,
     context_settings={"help_option_names": ["-h", "--help"]},
 )
 
@@ -45,16 +321,11 @@ def main(
     """dieplan command line."""
 
 
-def fail(error: ProblemError) -> None:
-    print(f"dieplan: {error.line()}", file=sys.stderr)
-    raise typer.Exit(code=2)
-
-
 def _console() -> Console:
     # A terminal gets its own width; piped output gets a fixed, wide, plain layout.
-    console = Console(highlight=False)
+    console = Console(highlight=False, emoji=False)
     if not console.is_terminal:
-        console = Console(highlight=False, width=120)
+        console = Console(highlight=False, emoji=False, width=120)
     return console
 
 
@@ -63,17 +334,17 @@ def check(problem_path: ProblemPath) -> None:
     """Validate a problem file and show what was understood, in base units."""
     from optimizer.explore.paths import check_uncertain
 
-    try:
-        problem = load_problem(problem_path)
-        check_uncertain(problem, str(problem_path))
-        evaluator = Evaluator(problem)
-        for design in problem.design:
-            evaluate_design(evaluator, design, str(problem_path))
-    except ProblemError as error:
-        fail(error)
+    preflight()
+    problem = load_problem(problem_path)
+    check_uncertain(problem, str(problem_path))
+    evaluator = Evaluator(problem)
+    results = [evaluate_design(evaluator, d, str(problem_path)) for d in problem.design]
     console = _console()
     console.print(report.problem_summary(problem, str(problem_path)))
-    console.print(f"ok: {problem_path} is valid.")
+    for result in results:
+        for violation in result.violations:
+            console.print(Text(f"design '{result.design}' breaks rule: {violation}", style="red"))
+    console.print(Text(f"ok: {problem_path} is valid."))
 
 
 @app.command()
@@ -84,36 +355,36 @@ def evaluate(
     ] = None,
     as_json: Annotated[bool, typer.Option("--json", help="Print one JSON object.")] = False,
 ) -> None:
-    """Price the explicit designs of a problem file: cost per good unit, yields, profit."""
-    try:
-        problem = load_problem(problem_path)
-        if not problem.design:
-            raise ProblemError(
-                str(problem_path), "design", "the file has no [[design]] to evaluate; add one"
-            )
-        if design is not None:
-            names = [d.name for d in problem.design]
-            if design not in names:
-                raise ProblemError(
-                    str(problem_path), "design", f"no design named '{design}'; use one of {names}"
-                )
-            chosen = [problem.design_named(design)]
-        else:
-            chosen = list(problem.design)
-        evaluator = Evaluator(problem)
-        results = [evaluate_design(evaluator, d, str(problem_path)) for d in chosen]
-    except ProblemError as error:
-        fail(error)
-    if as_json:
-        payload = (
-            results[0].to_dict()
-            if len(results) == 1
-            else {
-                "problem": problem.title,
-                "designs": [r.to_dict() for r in results],
-            }
+    """Price the explicit designs of a problem file: cost per good unit, yields, profit.
+
+    Designs that break a rule or mandate of the file are priced, marked with the rules
+    they break and listed after every design that keeps them all.
+    """
+    preflight()
+    problem = load_problem(problem_path)
+    if not problem.design:
+        raise ProblemError(
+            str(problem_path), "design", "the file has no [[design]] to evaluate; add one"
         )
-        typer.echo(json.dumps(payload, indent=2, allow_nan=True))
+    if design is not None:
+        names = [d.name for d in problem.design]
+        if design not in names:
+            raise ProblemError(
+                "--design",
+                "",
+                f"no design named '{short(design)}' in {problem_path}; use one of {names}",
+            )
+        chosen = [problem.design_named(design)]
+    else:
+        chosen = list(problem.design)
+    evaluator = Evaluator(problem)
+    results = report.by_rules_then_profit(
+        [evaluate_design(evaluator, d, str(problem_path)) for d in chosen]
+    )
+    if as_json:
+        # one shape whatever the number of designs
+        payload = {"problem": problem.title, "designs": [r.to_dict() for r in results]}
+        typer.echo(json_text(payload))
         return
     console = _console()
     for result in results:
@@ -121,7 +392,16 @@ def evaluate(
         console.print()
     if len(results) > 1:
         console.print(report.designs_overview(results))
-    console.print(report.CAUTION, style="dim")
+    breakers = [r.design for r in results if r.violations]
+    if breakers:
+        console.print(
+            Text(
+                f"{len(breakers)} of {len(results)} design(s) break a rule of the problem and "
+                f"are listed last: {', '.join(breakers)}",
+                style="red",
+            )
+        )
+    console.print(report.CAUTION, style="dim", markup=False)
 
 
 @app.command()
@@ -133,7 +413,12 @@ def solve(
     ] = "milp",
     time_limit: Annotated[
         float | None,
-        typer.Option("--time-limit", min=0.0, help="Seconds; returns the best found and its gap."),
+        typer.Option(
+            "--time-limit",
+            min=0.0,
+            callback=finite,
+            help="Seconds; returns the best found and its gap.",
+        ),
     ] = None,
     as_json: Annotated[bool, typer.Option("--json", help="Print the solution as JSON.")] = False,
     results_dir: Annotated[
@@ -141,15 +426,24 @@ def solve(
     ] = Path("results"),
     write: Annotated[bool, typer.Option("--write/--no-write", help="Write a run folder.")] = True,
     require_die_yield: Annotated[
-        float | None, typer.Option("--require-die-yield", help="Mandate a minimum die yield (0-1).")
+        float | None,
+        typer.Option(
+            "--require-die-yield", callback=finite, help="Mandate a minimum die yield (0-1)."
+        ),
     ] = None,
     require_sigma: Annotated[
         float | None,
-        typer.Option("--require-sigma", help="Mandate a minimum design margin [sigma]."),
+        typer.Option(
+            "--require-sigma", callback=finite, help="Mandate a minimum design margin [sigma]."
+        ),
     ] = None,
     require_defect_level: Annotated[
         float | None,
-        typer.Option("--require-defect-level", help="Mandate a maximum defect level (e.g. 1e-4)."),
+        typer.Option(
+            "--require-defect-level",
+            callback=finite,
+            help="Mandate a maximum defect level (e.g. 1e-4).",
+        ),
     ] = None,
 ) -> None:
     """Find the most profitable design: partition, process per die, packaging, redundancy.
@@ -162,29 +456,23 @@ def solve(
     from optimizer.targets import price_requirements
 
     if method not in METHODS:
-        fail(
-            ProblemError(
-                str(problem_path),
-                "--method",
-                f"unknown method '{method}'; use one of {list(METHODS)}",
-            )
+        raise ProblemError(
+            "--method", short(method), f"unknown method; use one of {', '.join(METHODS)}"
         )
-    mandate = None
-    try:
-        problem = load_problem(problem_path)
-        mandate = _requirements(problem, require_die_yield, require_sigma, require_defect_level)
-        if mandate is not None and mandate.any():
-            priced = price_requirements(
-                problem, mandate, top=top, source=str(problem_path), time_limit=time_limit
-            )
-            solution, free = priced.mandated, priced.free
-        else:
-            solution = run_solver(
-                problem, top=top, method=method, time_limit=time_limit, source=str(problem_path)
-            )
-            priced = free = None
-    except ProblemError as error:
-        fail(error)
+    preflight(results_dir if write else None)
+    options = _requirement_options(require_die_yield, require_sigma, require_defect_level)
+    problem = load_problem(problem_path)
+    mandate = _requirements(problem, options)
+    if mandate is not None and mandate.any():
+        priced = price_requirements(
+            problem, mandate, top=top, source=str(problem_path), time_limit=time_limit
+        )
+        solution, free = priced.mandated, priced.free
+    else:
+        solution = run_solver(
+            problem, top=top, method=method, time_limit=time_limit, source=str(problem_path)
+        )
+        priced = free = None
     payload = solution.to_dict()
     if priced is not None:
         payload["mandate"] = priced.to_dict()
@@ -196,7 +484,7 @@ def solve(
             "solve",
             problem_path.stem,
             {
-                "solution.json": text_writer(json.dumps(payload, indent=2)),
+                "solution.json": text_writer(json_text(payload) + "\n"),
                 "ranked.csv": text_writer(_ranked_csv(solution)),
                 "solver.log": text_writer("\n".join(solution.log) + "\n"),
                 "problem.toml": copy_writer(problem_path),
@@ -205,35 +493,51 @@ def solve(
     if as_json:
         if folder is not None:
             payload["run_folder"] = str(folder)
-        typer.echo(json.dumps(payload, indent=2))
+        typer.echo(json_text(payload))
         return
     console = _console()
     console.print(report.solution_view(solution))
     if priced is not None:
         console.print(report.mandate_view(priced))
     if folder is not None:
-        console.print(f"wrote {folder}")
-    console.print(report.CAUTION, style="dim")
+        console.print(Text(f"wrote {folder}"))
+    console.print(report.CAUTION, style="dim", markup=False)
 
 
-def _requirements(problem, die_yield, sigma, defect_level):
+REQUIRE_OPTIONS = {
+    "--require-die-yield": ("min_die_yield", "a die yield above 0 and at most 1, e.g. 0.9"),
+    "--require-sigma": ("min_sigma_margin", "a design margin above 0 sigma, e.g. 3"),
+    "--require-defect-level": (
+        "max_defect_level",
+        "a defect level from 0 to below 1, e.g. 1e-4 (100 ppm)",
+    ),
+}
+
+
+def _requirement_options(die_yield, sigma, defect_level) -> dict[str, float]:
+    """The --require-... options given, as [requirements] keys; each checked on its own."""
+    from pydantic import ValidationError
+
+    from optimizer.problem import Requirements
+
+    chosen = {}
+    given = zip(REQUIRE_OPTIONS.items(), (die_yield, sigma, defect_level), strict=True)
+    for (option, (key, wanted)), value in given:
+        if value is None:
+            continue
+        try:
+            Requirements(**{key: value})
+        except ValidationError:
+            raise ProblemError(option, f"{value:g}", f"out of range; give {wanted}") from None
+        chosen[key] = value
+    return chosen
+
+
+def _requirements(problem, options: dict[str, float]):
     """The file's [requirements] with any --require-... options on top (None if none)."""
     from optimizer.problem import Requirements
 
-    base = problem.requirements.model_dump()
-    for key, value in (
-        ("min_die_yield", die_yield),
-        ("min_sigma_margin", sigma),
-        ("max_defect_level", defect_level),
-    ):
-        if value is not None:
-            base[key] = value
-    try:
-        merged = Requirements(**base)
-    except Exception as exc:  # pydantic names the bad value
-        raise ProblemError(
-            "--require", "", f"invalid requirement ({exc.errors()[0]['msg']})"
-        ) from None
+    merged = Requirements(**{**problem.requirements.model_dump(), **options})
     return merged if merged.any() else None
 
 
@@ -265,34 +569,37 @@ def profit_curve_command(
     problem_path: ProblemPath,
     points: Annotated[int, typer.Option("--points", min=3, help="Targets on the curve.")] = 61,
     require_die_yield: Annotated[
-        float | None, typer.Option("--require-die-yield", help="Mark a mandated die yield.")
+        float | None,
+        typer.Option(
+            "--require-die-yield", callback=finite, help="Mark a mandated die yield (0-1)."
+        ),
     ] = None,
     results_dir: Annotated[
         Path, typer.Option("--results", help="Folder for the run folder.")
     ] = Path("results"),
 ) -> None:
     """Profit and cost per good unit of the winning design against its yield target."""
+    from optimizer.explore.plots import literal_text
     from optimizer.solver import solve as run_solver
     from optimizer.targets import cost_rises_without_bound, profit_curve, profit_curve_figure
 
-    try:
-        problem = load_problem(problem_path)
-        solution = run_solver(problem, top=1, source=str(problem_path))
-        frame = profit_curve(problem, solution.best, points=points)
-    except ProblemError as error:
-        fail(error)
+    _requirement_options(require_die_yield, None, None)
+    preflight(results_dir)
+    problem = load_problem(problem_path)
+    solution = run_solver(problem, top=1, source=str(problem_path))
+    frame = profit_curve(problem, solution.best, points=points)
     mandated = (
         require_die_yield if require_die_yield is not None else problem.requirements.min_die_yield
     )
-    figure = profit_curve_figure(frame, problem.market.currency, mandated)
+    figure = literal_text(profit_curve_figure)(frame, problem.market.currency, mandated)
     folder = write_run_folder(
         results_dir,
         "profit-curve",
         problem_path.stem,
         {
             "profit_curve.csv": text_writer(frame.to_csv(index=False)),
-            "profit_curve.png": lambda path: figure.savefig(path, dpi=130),
-            "profit_curve.svg": lambda path: figure.savefig(path),
+            "profit_curve.png": figure_writer(figure, dpi=130),
+            "profit_curve.svg": figure_writer(figure),
             "problem.toml": copy_writer(problem_path),
         },
     )
@@ -300,19 +607,23 @@ def profit_curve_command(
     best = inside.loc[inside["profit"].idxmax()]
     console = _console()
     console.print(
-        f"winner: {report.short_design(solution.best)}; yield target varied on process "
-        f"'{frame.attrs['process']}'"
+        Text(
+            f"winner: {report.short_design(solution.best)}; yield target varied on process "
+            f"'{frame.attrs['process']}'"
+        )
     )
     console.print(
-        f"profit peaks at {100 * best['hard_yield']:.2f}% defect-limited yield "
-        f"(D = {best['defect_density_per_cm2']:.4g} /cm^2): profit "
-        f"{report.money(best['profit'], problem.market.currency)}, cost per good unit "
-        f"{report.money(best['cost_per_good_unit'])}"
+        Text(
+            f"profit peaks at {100 * best['hard_yield']:.2f}% defect-limited yield "
+            f"(D = {best['defect_density_per_cm2']:.4g} /cm^2): profit "
+            f"{report.money(best['profit'], problem.market.currency)}, cost per good unit "
+            f"{report.money(best['cost_per_good_unit'])}"
+        )
     )
     shape = "yes" if cost_rises_without_bound(frame) else "no"
     console.print(f"cost per good unit rises without bound as the target approaches 100%: {shape}")
-    console.print(f"wrote {folder}")
-    console.print(report.CAUTION, style="dim")
+    console.print(Text(f"wrote {folder}"))
+    console.print(report.CAUTION, style="dim", markup=False)
 
 
 from optimizer import cli_explore  # noqa: F401,E402  (registers exploration commands)

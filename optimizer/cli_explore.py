@@ -1,14 +1,15 @@
 """Exploration commands of the `dieplan` command line: compare, sweep, sensitivity, uncertainty.
 
 Registered on the main app when ``optimizer.cli`` imports this module. Each command
-checks its options, runs the library (``optimizer/explore/``), prints a short summary and
-writes one run folder atomically: the problem file(s), the options as JSON, CSV tables
-and PNG + SVG figures. Bad input is one line on stderr and exit code 2.
+checks its options and output folder before any work, runs the library
+(``optimizer/explore/``), prints a short summary and writes one run folder atomically:
+the problem file(s), the options as JSON, CSV tables and PNG + SVG figures. Bad input is
+one line on stderr and exit code 2 (see :class:`optimizer.cli.OneLineGroup`); names from
+problem files are printed as Text, never read as console markup.
 """
 
 from __future__ import annotations
 
-import json
 import math
 import os
 from collections.abc import Callable, Iterator
@@ -16,25 +17,38 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import Annotated
 
-import numpy as np
 import pandas as pd
 import typer
 from rich.console import Console
-from rich.markup import escape
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
-from rich.table import Table
+from rich.text import Text
 
-from optimizer.cli import ProblemPath, app, fail
-from optimizer.outputs import Writer, copy_writer, text_writer, write_run_folder
+from optimizer.cli import ProblemPath, app, finite, preflight
+from optimizer.outputs import (
+    Writer,
+    clean,
+    copy_writer,
+    figure_writer,
+    json_text,
+    json_writer,
+    short,
+    text_writer,
+    write_run_folder,
+)
 from optimizer.problem import ProblemError
-from optimizer.report import CAUTION, money
+from optimizer.report import CAUTION, cells, literal_table, money
 
 ResultsDir = Annotated[Path, typer.Option("--results", help="Folder for the run folder.")]
 AsJson = Annotated[bool, typer.Option("--json", help="Print one JSON object.")]
 Write = Annotated[bool, typer.Option("--write/--no-write", help="Write a run folder.")]
 TimeLimit = Annotated[
     float | None,
-    typer.Option("--time-limit", min=0.0, help="Seconds per solve; best found and its gap."),
+    typer.Option(
+        "--time-limit",
+        min=0.0,
+        callback=finite,
+        help="Seconds per solve; best found and its gap.",
+    ),
 ]
 Workers = Annotated[
     int | None,
@@ -48,9 +62,9 @@ Scheduler = Annotated[
 
 # ---------------------------------------------------------------- shared helpers
 def _console() -> Console:
-    console = Console(highlight=False)
+    console = Console(highlight=False, emoji=False)
     if not console.is_terminal:
-        console = Console(highlight=False, width=120)
+        console = Console(highlight=False, emoji=False, width=120)
     return console
 
 
@@ -81,32 +95,16 @@ def _progress(console: Console, enabled: bool) -> Iterator[tuple[Callable, Calla
 
 
 def _runner(workers: int | None, scheduler: str | None):
-    from optimizer.explore.parallel import Runner
+    """The executor, its options checked (raises the one-line ProblemError)."""
+    from optimizer.explore.parallel import Runner, max_workers
 
     if workers is None:
-        workers = os.cpu_count() or 1
+        workers = min(os.cpu_count() or 1, max_workers())
     return Runner(workers=workers, scheduler=scheduler)
 
 
-def _clean(value: object) -> object:
-    """JSON-safe values: NaN and infinities become null; numpy scalars plain numbers."""
-    if isinstance(value, dict):
-        return {str(k): _clean(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_clean(v) for v in value]
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
-
-
 def _records(frame: pd.DataFrame) -> list[dict]:
-    return _clean(frame.to_dict(orient="records"))
-
-
-def _json_writer(payload: object) -> Writer:
-    return text_writer(json.dumps(_clean(payload), indent=2) + "\n")
+    return clean(frame.to_dict(orient="records"))
 
 
 def _csv_writer(frame: pd.DataFrame) -> Writer:
@@ -115,10 +113,13 @@ def _csv_writer(frame: pd.DataFrame) -> Writer:
 
 def _figure_writers(stem: str, figure) -> dict[str, Writer]:
     return {
-        f"{stem}.png": lambda path: figure.savefig(path, dpi=130),
-        # no date in the SVG, so identical runs give identical files
-        f"{stem}.svg": lambda path: figure.savefig(path, metadata={"Date": None}),
+        f"{stem}.png": figure_writer(figure, dpi=130),
+        f"{stem}.svg": figure_writer(figure),
     }
+
+
+def _say(console: Console, text: str, style: str | None = None) -> None:
+    console.print(Text(text, style=style or ""))
 
 
 def _finish(
@@ -131,12 +132,12 @@ def _finish(
     if as_json:
         if folder is not None:
             payload["run_folder"] = str(folder)
-        typer.echo(json.dumps(_clean(payload), indent=2))
+        typer.echo(json_text(payload))
         return
     show()
     if folder is not None:
-        console.print(f"wrote {folder}")
-    console.print(CAUTION, style="dim")
+        _say(console, f"wrote {folder}")
+    _say(console, CAUTION, "dim")
 
 
 def _design_rows(designs: dict) -> dict:
@@ -190,29 +191,27 @@ def compare(
     from optimizer.explore.plots import comparison_figure
 
     console = _console()
-    try:
-        if len(problem_paths) > 1 and processes:
+    if len(problem_paths) > 1 and processes:
+        raise ProblemError(
+            "--processes",
+            "",
+            "applies to one problem file; give one file with --processes, or several "
+            "files without it",
+        )
+    preflight(results_dir if write else None)
+    studies = [load_study(p) for p in problem_paths]
+    if len(studies) > 1:
+        options = comparing.file_options(studies)
+    else:
+        sets = [s.split(",") for s in processes] if processes else None
+        options = comparing.process_options(studies[0], sets)
+        if not options:
             raise ProblemError(
-                "--processes",
-                "",
-                "applies to one problem file; give one file with --processes, or several "
-                "files without it",
+                str(problem_paths[0]), "process", "no process can be packaged on its own"
             )
-        studies = [load_study(p) for p in problem_paths]
-        if len(studies) > 1:
-            options = comparing.file_options(studies)
-        else:
-            sets = [s.split(",") for s in processes] if processes else None
-            options = comparing.process_options(studies[0], sets)
-            if not options:
-                raise ProblemError(
-                    str(problem_paths[0]), "process", "no process can be packaged on its own"
-                )
-        with _progress(console, not as_json) as (stage, advance):
-            stage("solving options", len(options))
-            result = comparing.compare(options, time_limit=time_limit, progress=advance)
-    except ProblemError as error:
-        fail(error)
+    with _progress(console, not as_json) as (stage, advance):
+        stage("solving options", len(options))
+        result = comparing.compare(options, time_limit=time_limit, progress=advance)
     currency = studies[0].problem.market.currency
     table = result.table
     payload = {
@@ -229,15 +228,15 @@ def compare(
     if write:
         files: dict[str, Writer] = {
             "comparison.csv": _csv_writer(table),
-            "comparison.json": _json_writer(payload),
-            "options.json": _json_writer(payload["options"]),
+            "comparison.json": json_writer(payload),
+            "options.json": json_writer(payload["options"]),
             **_figure_writers("cost_by_component", comparison_figure(result, currency)),
         }
         files.update(_problem_copies(problem_paths))
         folder = write_run_folder(results_dir, "compare", problem_paths[0].stem, files)
 
     def show() -> None:
-        view = Table(title=f"Winners side by side ({currency})", title_justify="left")
+        view = literal_table(f"Winners side by side ({currency})")
         for col in (
             "option",
             "design kind",
@@ -253,26 +252,28 @@ def compare(
             )
         for row in table.itertuples():
             if not math.isfinite(row.profit):
-                view.add_row(escape(str(row.option)), escape(row.design_kind), *["-"] * 6)
+                view.add_row(*cells(row.option, row.design_kind, *["-"] * 6))
                 continue
             view.add_row(
-                escape(str(row.option)),
-                escape(row.design_kind),
-                f"{row.cost_per_good_unit:,.2f}",
-                money(row.profit),
-                money(row.profit_vs_best),
-                escape(row.die_yields),
-                f"{100 * row.package_yield:.2f}%",
-                money(row.nre),
+                *cells(
+                    row.option,
+                    row.design_kind,
+                    f"{row.cost_per_good_unit:,.2f}",
+                    money(row.profit),
+                    money(row.profit_vs_best),
+                    row.die_yields,
+                    f"{100 * row.package_yield:.2f}%",
+                    money(row.nre),
+                )
             )
         console.print(view)
         for row in table.itertuples():
             if isinstance(row.differences_explained, str):
                 console.print(
-                    f"[bold]{escape(str(row.option))}[/bold]: {escape(row.differences_explained)}"
+                    Text.assemble((str(row.option), "bold"), f": {row.differences_explained}")
                 )
             if row.notes:
-                console.print(f"  note: {escape(row.notes)}", style="dim")
+                _say(console, f"  note: {row.notes}", "dim")
 
     _finish(console, as_json, payload, folder, show)
 
@@ -297,7 +298,7 @@ def sweep(
             show_default=False,
         ),
     ],
-    steps: Annotated[int, typer.Option("--steps", help="Grid points on --vary.")] = 21,
+    steps: Annotated[int, typer.Option("--steps", help="Grid points on --vary (2 or more).")] = 21,
     log: Annotated[bool, typer.Option("--log", help="Geometric steps on --vary.")] = False,
     vary2: Annotated[
         tuple[str, str, str] | None,
@@ -329,27 +330,24 @@ def sweep(
     from optimizer.explore.sweep import make_axis, run_sweep
 
     console = _console()
-    try:
-        axes = [make_axis(vary[0], vary[1], vary[2], steps, log, "--vary", "--steps")]
-        if vary2 is not None:
-            axes.append(
-                make_axis(vary2[0], vary2[1], vary2[2], steps2, log2, "--vary2", "--steps2")
-            )
-        study = load_study(problem_path)
-        runner = _runner(workers, scheduler)
-        with _progress(console, not as_json) as (stage, advance):
-            result = run_sweep(
-                study,
-                axes,
-                runner=runner,
-                time_limit=time_limit,
-                refine=refine,
-                progress=advance,
-                stage=stage,
-                every_point=every_point,
-            )
-    except ProblemError as error:
-        fail(error)
+    axes = [make_axis(vary[0], vary[1], vary[2], steps, log, "--vary", "--steps")]
+    if vary2 is not None:
+        axes.append(make_axis(vary2[0], vary2[1], vary2[2], steps2, log2, "--vary2", "--steps2"))
+    runner = _runner(workers, scheduler)
+    preflight(results_dir if write else None)
+    study = load_study(problem_path)
+    with runner.session(), _progress(console, not as_json) as (stage, advance):
+        runner.start()
+        result = run_sweep(
+            study,
+            axes,
+            runner=runner,
+            time_limit=time_limit,
+            refine=refine,
+            progress=advance,
+            stage=stage,
+            every_point=every_point,
+        )
     currency = study.problem.market.currency
     options = {
         "problem": str(problem_path),
@@ -386,8 +384,8 @@ def sweep(
         files: dict[str, Writer] = {
             "points.csv": _csv_writer(result.points),
             "crossovers.csv": _csv_writer(result.crossovers),
-            "designs.json": _json_writer(payload["designs"]),
-            "options.json": _json_writer(options),
+            "designs.json": json_writer(payload["designs"]),
+            "options.json": json_writer(options),
             **_figure_writers(stem, sweep_figure(result, currency)),
             "problem.toml": copy_writer(problem_path),
         }
@@ -403,24 +401,21 @@ def sweep(
             else f"{result.solves} solves"
             + (", candidate dies shared" if result.shared_candidates else "")
         )
-        console.print(
-            escape(
-                f"{len(result.points)} scenarios over {axis_names} on {runner.description} ({how})"
-            )
+        _say(
+            console,
+            f"{len(result.points)} scenarios over {axis_names} on {runner.description} ({how})",
         )
-        kinds = Table(title="Winning designs", title_justify="left")
+        kinds = literal_table("Winning designs")
         for col in ("id", "design kind", "wins", "design"):
             kinds.add_column(col, justify="right" if col == "wins" else "left")
         wins = result.points["design_id"].value_counts()
         for key, design in result.designs.items():
-            kinds.add_row(
-                key, escape(design.kind), str(int(wins.get(key, 0))), escape(design.summary)
-            )
+            kinds.add_row(*cells(key, design.kind, str(int(wins.get(key, 0))), design.summary))
         console.print(kinds)
         if result.crossovers.empty:
-            console.print("no crossover: one design kind wins over the whole range")
+            _say(console, "no crossover: one design kind wins over the whole range")
             return
-        view = Table(title="Crossovers (winning kind changes)", title_justify="left")
+        view = literal_table("Crossovers (winning kind changes)")
         for col in ("axis", "at", "from", "to", "crossing", "profit there", "how"):
             view.add_column(col)
         for row in result.crossovers.itertuples():
@@ -430,15 +425,17 @@ def sweep(
                 else (f"{row.grid_low:.6g} .. {row.grid_high:.6g}")
             )
             view.add_row(
-                escape(row.axis),
-                escape(row.at),
-                escape(row.kind_before),
-                escape(row.kind_after),
-                where,
-                money(row.profit_at_crossing, currency)
-                if math.isfinite(row.profit_at_crossing)
-                else "-",
-                row.method,
+                *cells(
+                    row.axis,
+                    row.at,
+                    row.kind_before,
+                    row.kind_after,
+                    where,
+                    money(row.profit_at_crossing, currency)
+                    if math.isfinite(row.profit_at_crossing)
+                    else "-",
+                    row.method,
+                )
             )
         console.print(view)
 
@@ -469,15 +466,13 @@ def sensitivity(
     from optimizer.explore.sensitivity import make_range, ranges_from_study, run_sensitivity
 
     console = _console()
-    try:
-        extra = [_parse_range(text, make_range) for text in ranges or []]
-        study = load_study(problem_path)
-        all_ranges = ranges_from_study(study) + extra
-        with _progress(console, not as_json) as (stage, advance):
-            stage("re-pricing the winner", max(1, len(all_ranges)))
-            result = run_sensitivity(study, all_ranges, time_limit=time_limit, progress=advance)
-    except ProblemError as error:
-        fail(error)
+    extra = [_parse_range(text, make_range) for text in ranges or []]
+    preflight(results_dir if write else None)
+    study = load_study(problem_path)
+    all_ranges = ranges_from_study(study) + extra
+    with _progress(console, not as_json) as (stage, advance):
+        stage("re-pricing the winner", max(1, len(all_ranges)))
+        result = run_sensitivity(study, all_ranges, time_limit=time_limit, progress=advance)
     currency = study.problem.market.currency
     options = {"problem": str(problem_path), "ranges": ranges or [], "time_limit": time_limit}
     payload = {
@@ -494,28 +489,30 @@ def sensitivity(
     if write:
         files: dict[str, Writer] = {
             "sensitivity.csv": _csv_writer(result.table),
-            "winner.json": _json_writer(result.winner.to_dict()),
-            "options.json": _json_writer(options),
+            "winner.json": json_writer(result.winner.to_dict()),
+            "options.json": json_writer(options),
             **_figure_writers("tornado", tornado_figure(result, currency)),
             "problem.toml": copy_writer(problem_path),
         }
         folder = write_run_folder(results_dir, "sensitivity", problem_path.stem, files)
 
     def show() -> None:
-        console.print(escape(f"winner (held fixed): {result.design.kind}: {result.design.summary}"))
-        console.print(f"profit at the file's values: {money(result.base_profit, currency)}")
-        view = Table(title="Profit change, largest swing first", title_justify="left")
+        _say(console, f"winner (held fixed): {result.design.kind}: {result.design.summary}")
+        _say(console, f"profit at the file's values: {money(result.base_profit, currency)}")
+        view = literal_table("Profit change, largest swing first")
         for col in ("input", "range", "at low", "at high", "swing", "note"):
             view.add_column(col, justify="left" if col in ("input", "note") else "right")
         for row in result.table.itertuples():
             unit = f" {row.unit}" if row.unit else ""
             view.add_row(
-                escape(row.input),
-                escape(f"{row.low:.4g} .. {row.high:.4g}{unit}"),
-                _signed(row.change_low),
-                _signed(row.change_high),
-                money(row.swing) if math.isfinite(row.swing) else "-",
-                escape(row.note),
+                *cells(
+                    row.input,
+                    f"{row.low:.4g} .. {row.high:.4g}{unit}",
+                    _signed(row.change_low),
+                    _signed(row.change_high),
+                    money(row.swing) if math.isfinite(row.swing) else "-",
+                    row.note,
+                )
             )
         console.print(view)
 
@@ -532,7 +529,9 @@ def _parse_range(text: str, make_range):
     path, sep, span = text.partition("=")
     low, sep2, high = span.partition(":")
     if not (sep and sep2 and path.strip() and low.strip() and high.strip()):
-        raise ProblemError("--range", text, "write PATH=LOW:HIGH, e.g. market.unit_price=1500:2300")
+        raise ProblemError(
+            "--range", short(text), "write PATH=LOW:HIGH, e.g. market.unit_price=1500:2300"
+        )
     return make_range(path.strip(), low.strip(), high.strip())
 
 
@@ -540,8 +539,13 @@ def _parse_range(text: str, make_range):
 @app.command()
 def uncertainty(
     problem_path: ProblemPath,
-    samples: Annotated[int, typer.Option("--samples", "-n", help="Monte Carlo samples.")] = 1000,
-    seed: Annotated[int, typer.Option("--seed", help="Random seed (same seed, same result).")] = 0,
+    samples: Annotated[
+        int, typer.Option("--samples", "-n", min=2, help="Monte Carlo samples (2 or more).")
+    ] = 1000,
+    seed: Annotated[
+        int,
+        typer.Option("--seed", min=0, help="Random seed, 0 or more (same seed, same result)."),
+    ] = 0,
     top: Annotated[int, typer.Option("--top", "-k", min=1, help="Designs to compare.")] = 3,
     workers: Workers = None,
     scheduler: Scheduler = None,
@@ -556,22 +560,21 @@ def uncertainty(
     from optimizer.explore.uncertainty import run_uncertainty
 
     console = _console()
-    try:
-        study = load_study(problem_path)
-        runner = _runner(workers, scheduler)
-        with _progress(console, not as_json) as (stage, advance):
-            result = run_uncertainty(
-                study,
-                samples=samples,
-                seed=seed,
-                top=top,
-                runner=runner,
-                time_limit=time_limit,
-                progress=advance,
-                stage=stage,
-            )
-    except ProblemError as error:
-        fail(error)
+    runner = _runner(workers, scheduler)
+    preflight(results_dir if write else None)
+    study = load_study(problem_path)
+    with runner.session(), _progress(console, not as_json) as (stage, advance):
+        runner.start()
+        result = run_uncertainty(
+            study,
+            samples=samples,
+            seed=seed,
+            top=top,
+            runner=runner,
+            time_limit=time_limit,
+            progress=advance,
+            stage=stage,
+        )
     currency = study.problem.market.currency
     options = {
         "problem": str(problem_path),
@@ -593,10 +596,10 @@ def uncertainty(
         files: dict[str, Writer] = {
             "summary.csv": _csv_writer(result.summary),
             "samples.csv": _csv_writer(result.samples_frame()),
-            "designs.json": _json_writer(
+            "designs.json": json_writer(
                 _design_rows({f"rank{k + 1}": d for k, d in enumerate(result.designs)})
             ),
-            "options.json": _json_writer(options),
+            "options.json": json_writer(options),
             **_figure_writers("profit_distribution", uncertainty_figure(result, currency)),
             "problem.toml": copy_writer(problem_path),
         }
@@ -604,10 +607,8 @@ def uncertainty(
 
     def show() -> None:
         names = ", ".join(p.text for p in result.inputs)
-        console.print(
-            escape(f"{samples:,} samples (seed {seed}) of {names} on {runner.description}")
-        )
-        view = Table(title=f"Profit ({currency}) of the top designs", title_justify="left")
+        _say(console, f"{samples:,} samples (seed {seed}) of {names} on {runner.description}")
+        view = literal_table(f"Profit ({currency}) of the top designs")
         for col in (
             "rank",
             "design kind",
@@ -620,23 +621,26 @@ def uncertainty(
             view.add_column(col, justify="left" if col == "design kind" else "right")
         for row in result.summary.itertuples():
             view.add_row(
-                str(row.rank),
-                escape(row.design_kind),
-                money(row.profit_at_file_values),
-                money(row.p10),
-                money(row.p50),
-                money(row.p90),
-                f"{100 * row.prob_best:.1f}%",
+                *cells(
+                    str(row.rank),
+                    row.design_kind,
+                    money(row.profit_at_file_values),
+                    money(row.p10),
+                    money(row.p50),
+                    money(row.p90),
+                    f"{100 * row.prob_best:.1f}%",
+                )
             )
         console.print(view)
         for row in result.summary.itertuples():
-            console.print(escape(f"rank {row.rank}: {row.design}"), style="dim")
+            _say(console, f"rank {row.rank}: {row.design}", "dim")
         for row in result.summary.itertuples():
             if row.unbuildable_samples:
-                console.print(
+                _say(
+                    console,
                     f"rank {row.rank} cannot be built in {row.unbuildable_samples} "
                     "samples (left out of its percentiles)",
-                    style="dim",
+                    "dim",
                 )
 
     _finish(console, as_json, payload, folder, show)

@@ -1,20 +1,23 @@
 """Complete designs: a few die designs with copies on one packaging option.
 
 Turns an explicit design (from the problem file, or chosen by the solver) into the
-evaluator's arrays, prices it and returns one named, JSON-ready result. Physical
-impossibilities (a die over the reticle field, an interposer over its limit) are errors;
-soft limits from the constraints section are listed as violations.
+evaluator's arrays, prices it and returns one named, JSON-ready result.
+
+A design that cannot be made at all (a die over its reticle field or with no whole die
+on the wafer, an interposer over its limit, two defect targets on one process) is an
+error. A design that can be made and priced but breaks a rule or mandate of the problem
+is priced, with every broken rule listed by :func:`design_violations`.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 
 from optimizer.evaluator import COST_COMPONENTS, DieBatch, Evaluator
-from optimizer.problem import Design, ProblemError
+from optimizer.problem import Design, Problem, ProblemError, Requirements
 
 
 @dataclass(frozen=True)
@@ -193,8 +196,13 @@ def evaluate_specs(
     packaging_name: str,
     design_name: str = "design",
     source: str = "<problem>",
+    requirements: Requirements | None = None,
 ) -> DesignResult:
-    """Price one complete design given as die specs on a named packaging option."""
+    """Price one complete design given as die specs on a named packaging option.
+
+    Its ``violations`` list the rules it breaks (:func:`design_violations`, checked
+    against ``requirements``, default the file's).
+    """
     problem = evaluator.problem
     g = problem.packaging_index(packaging_name)
     packaging = problem.packaging[g]
@@ -221,27 +229,7 @@ def evaluate_specs(
             f"{packaging.interposer_max_area_mm2:g} mm^2 of '{packaging.name}'; "
             "use less silicon or another packaging",
         )
-    violations = []
-    limits = problem.constraints
-    for i, spec in enumerate(specs):
-        area = prices.area_mm2[i]
-        if area < limits.min_die_area_mm2 - 1e-9 or area > limits.max_die_area_mm2 + 1e-9:
-            violations.append(
-                f"die '{spec.name}' area {area:.1f} mm^2 is outside the allowed range "
-                f"[{limits.min_die_area_mm2:g}, {limits.max_die_area_mm2:g}] mm^2"
-            )
-    count = {b.name: b.count for b in problem.block}
-    for spec in specs:
-        for group in limits.keep_together:
-            shares = {spec.blocks.get(name, 0) / count[name] for name in group}
-            if len(shares) > 1:
-                violations.append(f"die '{spec.name}' splits keep_together group {group}")
-        for group in limits.keep_apart:
-            if sum(1 for name in group if spec.blocks.get(name, 0)) > 1:
-                violations.append(f"die '{spec.name}' joins keep_apart group {group}")
     n_dies = int(copies.sum())
-    if n_dies > limits.max_dies:
-        violations.append(f"{n_dies} dies exceed constraints.max_dies = {limits.max_dies}")
     dies = [
         DieResult(
             name=spec.name,
@@ -281,7 +269,7 @@ def evaluate_specs(
             "target, so give each process one target",
         )
     one_time = float(product.nre[0] + product.improvement_spend[0])
-    return DesignResult(
+    result = DesignResult(
         design=design_name,
         packaging=packaging.name,
         packaging_kind=packaging.kind,
@@ -306,8 +294,97 @@ def evaluate_specs(
         profit=profit,
         margin=profit / float(product.revenue[0]),
         breakeven_volume=one_time / unit_margin if unit_margin > 0 else float("inf"),
-        violations=violations,
+        violations=[],
     )
+    return replace(result, violations=design_violations(problem, result, requirements))
+
+
+def design_violations(
+    problem: Problem, result: DesignResult, requirements: Requirements | None = None
+) -> list[str]:
+    """Every rule and mandate of ``problem`` that a priced design breaks ([] if none).
+
+    Each entry starts with the rule's place in the problem file, e.g.
+    ``"constraints.max_dies: 5 dies, more than 4"``. ``requirements`` replaces the file's
+    [requirements] (None: the file's own). Checked: die area within
+    [min_die_area, max_die_area], each die inside its process's reticle field, the die
+    count within constraints.max_dies and the packaging's max_dies, keep_together and
+    keep_apart groups, the interposer within its limit, and the mandated die yield,
+    sigma margin and defect level of every die. Tolerances match the solver's.
+    """
+    found: list[str] = []
+    limits = problem.constraints
+    packaging = problem.packaging[problem.packaging_index(result.packaging)]
+    need = problem.requirements if requirements is None else requirements
+    count = {b.name: b.count for b in problem.block}
+    for die in result.dies:
+        name = f"die '{die.name}'"
+        if die.area_mm2 < limits.min_die_area_mm2 - 1e-9:
+            found.append(
+                f"constraints.min_die_area: {name} is {die.area_mm2:.1f} mm^2, below "
+                f"{limits.min_die_area_mm2:g} mm^2"
+            )
+        if die.area_mm2 > limits.max_die_area_mm2 + 1e-9:
+            found.append(
+                f"constraints.max_die_area: {name} is {die.area_mm2:.1f} mm^2, above "
+                f"{limits.max_die_area_mm2:g} mm^2"
+            )
+        process = problem.process[problem.process_index(die.process)]
+        rw, rh = process.reticle_width_mm + 1e-9, process.reticle_height_mm + 1e-9
+        w, h = die.width_mm, die.height_mm
+        if not ((w <= rw and h <= rh) or (w <= rh and h <= rw)):
+            found.append(
+                f"process[{process.name}].reticle: {name} of {w:.1f} x {h:.1f} mm exceeds "
+                f"the {process.reticle_width_mm:g} x {process.reticle_height_mm:g} mm field"
+            )
+        for group in limits.keep_together:
+            if len({die.blocks.get(b, 0) / count[b] for b in group}) > 1:
+                found.append(f"constraints.keep_together: {name} splits group {group}")
+        for group in limits.keep_apart:
+            if sum(1 for b in group if die.blocks.get(b, 0)) > 1:
+                found.append(f"constraints.keep_apart: {name} joins group {group}")
+        if need.min_die_yield is not None and not (
+            die.die_yield >= need.min_die_yield * (1 - 1e-12)
+        ):
+            found.append(
+                f"requirements.min_die_yield: {name} yields {100 * die.die_yield:.2f}%, "
+                f"below {100 * need.min_die_yield:.2f}%"
+            )
+        if need.min_sigma_margin is not None:
+            if not math.isfinite(die.sigma_margin):
+                found.append(
+                    f"requirements.min_sigma_margin: {name} has no design margin set, "
+                    f"{need.min_sigma_margin:g} sigma required"
+                )
+            elif die.sigma_margin < need.min_sigma_margin * (1 - 1e-12):
+                found.append(
+                    f"requirements.min_sigma_margin: {name} has {die.sigma_margin:g} sigma, "
+                    f"below {need.min_sigma_margin:g}"
+                )
+        if need.max_defect_level is not None and not (
+            die.defect_level <= need.max_defect_level * (1 + 1e-12)
+        ):
+            found.append(
+                f"requirements.max_defect_level: {name} has defect level "
+                f"{1e6 * die.defect_level:.3g} ppm, above {1e6 * need.max_defect_level:.3g} ppm"
+            )
+    if result.n_dies > limits.max_dies:
+        found.append(f"constraints.max_dies: {result.n_dies} dies, more than {limits.max_dies}")
+    if result.n_dies > packaging.max_dies:
+        found.append(
+            f"packaging[{packaging.name}].max_dies: {result.n_dies} dies, more than "
+            f"{packaging.max_dies}"
+        )
+    if (
+        packaging.kind == "silicon_interposer"
+        and result.carrier_area_mm2 > packaging.interposer_max_area_mm2 + 1e-9
+    ):
+        found.append(
+            f"packaging[{packaging.name}].interposer_max_area: interposer of "
+            f"{result.carrier_area_mm2:.0f} mm^2, above {packaging.interposer_max_area_mm2:g} "
+            "mm^2"
+        )
+    return found
 
 
 def evaluate_design(

@@ -1,7 +1,9 @@
 """Rich renderings of results: the only module besides the CLI that formats output.
 
 Functions return rich renderables; the CLI decides where they go. Rich drops colour and
-styles by itself when the output is not a terminal, so piped output stays plain.
+styles by itself when the output is not a terminal, so piped output stays plain. Every
+name from a problem file goes in as a Text object, so brackets and colons in names are
+printed as written instead of being read as console markup.
 """
 
 from __future__ import annotations
@@ -34,6 +36,28 @@ COMPONENT_LABELS = {
 }
 
 
+BREAKS_RULES = "BREAKS RULES"
+
+
+def cells(*values: object) -> list:
+    """Table cells taken literally (no console markup, no emoji codes)."""
+    return [v if isinstance(v, Text) else Text(str(v)) for v in values]
+
+
+def literal_table(title: str, **options) -> Table:
+    return Table(title=Text(title), title_justify="left", **options)
+
+
+def by_rules_then_profit(results: list[DesignResult]) -> list[DesignResult]:
+    """Designs that keep every rule first, then those that break one; best profit first."""
+
+    def key(r: DesignResult) -> tuple[bool, float]:
+        profit = r.profit if r.profit == r.profit else -math.inf  # NaN last
+        return (bool(r.violations), -profit)
+
+    return sorted(results, key=key)
+
+
 def money(value: float, currency: str = "") -> str:
     if not math.isfinite(value):
         return "inf"
@@ -59,7 +83,9 @@ def design_breakdown(result: DesignResult) -> Group:
         f"  on {result.packaging} ({result.packaging_kind}), {result.n_dies} die(s), "
         f"package yield {percent(result.package_yield)}",
     )
-    dies = Table(title="Dies", title_justify="left", show_lines=False)
+    if result.violations:
+        head.append(f"  {BREAKS_RULES} ({len(result.violations)})", style="bold red")
+    dies = literal_table("Dies", show_lines=False)
     for col in (
         "die",
         "process",
@@ -74,52 +100,62 @@ def design_breakdown(result: DesignResult) -> Group:
         dies.add_column(col, justify="left" if col in ("die", "process") else "right")
     for die in result.dies:
         dies.add_row(
-            die.name,
-            die.process,
-            str(die.copies),
-            f"{die.area_mm2:.1f}",
-            f"{die.gross_dies_per_wafer:,.0f}",
-            percent(die.hard_yield),
-            percent(die.soft_yield),
-            f"{die.defect_level * 1e6:.0f} ppm",
-            money(die.cost_per_passed_die),
+            *cells(
+                die.name,
+                die.process,
+                str(die.copies),
+                f"{die.area_mm2:.1f}",
+                f"{die.gross_dies_per_wafer:,.0f}",
+                percent(die.hard_yield),
+                percent(die.soft_yield),
+                f"{die.defect_level * 1e6:.0f} ppm",
+                money(die.cost_per_passed_die),
+            )
         )
-    costs = Table(title=f"Cost per good unit ({cur})", title_justify="left")
+    costs = literal_table(f"Cost per good unit ({cur})")
     costs.add_column("component")
     costs.add_column("per unit", justify="right")
     costs.add_column("share", justify="right")
     total = result.cost_per_good_unit
     for name, value in result.breakdown.items():
-        costs.add_row(COMPONENT_LABELS[name], money(value), percent(value / total, 1))
+        costs.add_row(*cells(COMPONENT_LABELS[name], money(value), percent(value / total, 1)))
     costs.add_row(Text("total", style="bold"), Text(money(total), style="bold"), "100.0%")
     summary = Table.grid(padding=(0, 2))
     summary.add_column()
     summary.add_column(justify="right")
-    summary.add_row("unit price", money(result.unit_price, cur))
-    summary.add_row("volume (good units)", f"{result.volume:,.0f}")
-    summary.add_row(
-        "manufacturing cost / good unit", money(result.manufacturing_cost_per_good_unit, cur)
-    )
-    summary.add_row("NRE (one-time)", money(result.nre, cur))
+    rows = [
+        ("unit price", money(result.unit_price, cur)),
+        ("volume (good units)", f"{result.volume:,.0f}"),
+        ("manufacturing cost / good unit", money(result.manufacturing_cost_per_good_unit, cur)),
+        ("NRE (one-time)", money(result.nre, cur)),
+    ]
     if result.improvement_spend:
-        summary.add_row("yield-improvement spend (one-time)", money(result.improvement_spend, cur))
-    summary.add_row("revenue", money(result.revenue, cur))
+        rows.append(("yield-improvement spend (one-time)", money(result.improvement_spend, cur)))
+    rows.append(("revenue", money(result.revenue, cur)))
     for name, units in result.salvage_units.items():
-        summary.add_row(f"salvage bin {name} (units)", f"{units:,.0f}")
+        rows.append((f"salvage bin {name} (units)", f"{units:,.0f}"))
     if result.salvage_revenue:
-        summary.add_row("salvage revenue (net)", money(result.salvage_revenue, cur))
+        rows.append(("salvage revenue (net)", money(result.salvage_revenue, cur)))
+    for row in rows:
+        summary.add_row(*cells(*row))
     summary.add_row(Text("profit", style="bold"), Text(money(result.profit, cur), style="bold"))
-    summary.add_row("margin", percent(result.margin, 1))
-    summary.add_row("breakeven volume", f"{result.breakeven_volume:,.0f}")
+    summary.add_row(*cells("margin", percent(result.margin, 1)))
+    breakeven = result.breakeven_volume
+    summary.add_row(
+        *cells(
+            "breakeven volume",
+            f"{breakeven:,.0f}" if math.isfinite(breakeven) else "never (cost above price)",
+        )
+    )
     parts: list = [head, dies, costs, summary]
     for violation in result.violations:
-        parts.append(Text(f"constraint not met: {violation}", style="yellow"))
+        parts.append(Text(f"breaks rule: {violation}", style="red"))
     return Group(*parts)
 
 
 def designs_overview(results: list[DesignResult]) -> Table:
-    """One line per design, best profit first."""
-    table = Table(title="Designs by profit", title_justify="left")
+    """One line per design: those keeping every rule by profit, then the rule-breakers."""
+    table = literal_table("Designs by profit (designs that break a rule last)")
     for col in (
         "design",
         "packaging",
@@ -129,18 +165,29 @@ def designs_overview(results: list[DesignResult]) -> Table:
         "NRE",
         "profit",
         "margin",
+        "rules",
     ):
-        table.add_column(col, justify="left" if col in ("design", "packaging") else "right")
-    for r in sorted(results, key=lambda r: -r.profit):
+        table.add_column(
+            col, justify="left" if col in ("design", "packaging", "rules") else "right"
+        )
+    for r in by_rules_then_profit(results):
+        rules = (
+            Text(f"{BREAKS_RULES}: " + ", ".join(v.split(":")[0] for v in r.violations), "red")
+            if r.violations
+            else Text("kept")
+        )
         table.add_row(
-            r.design,
-            r.packaging,
-            str(r.n_dies),
-            money(r.cost_per_good_unit),
-            percent(r.package_yield),
-            money(r.nre),
-            money(r.profit),
-            percent(r.margin, 1),
+            *cells(
+                r.design,
+                r.packaging,
+                str(r.n_dies),
+                money(r.cost_per_good_unit),
+                percent(r.package_yield),
+                money(r.nre),
+                money(r.profit),
+                percent(r.margin, 1),
+                rules,
+            )
         )
     return table
 
@@ -165,10 +212,10 @@ def problem_summary(problem: Problem, source: str) -> Group:
             f"{problem.constraints.max_dies} dies"
         ),
     ]
-    procs = Table(title="Processes (base units)", title_justify="left")
+    procs = literal_table("Processes (base units)")
     procs.add_column("field")
     for p in problem.process:
-        procs.add_column(p.name, justify="right")
+        procs.add_column(Text(p.name), justify="right")
     rows = {
         "wafer diameter mm": [f"{p.wafer_diameter_mm:g}" for p in problem.process],
         "edge exclusion mm": [f"{p.edge_exclusion_mm:g}" for p in problem.process],
@@ -190,11 +237,11 @@ def problem_summary(problem: Problem, source: str) -> Group:
         ],
     }
     for name, values in rows.items():
-        procs.add_row(name, *values)
-    packs = Table(title="Packaging (base units)", title_justify="left")
+        procs.add_row(*cells(name, *values))
+    packs = literal_table("Packaging (base units)")
     packs.add_column("field")
     for g in problem.packaging:
-        packs.add_column(g.name, justify="right")
+        packs.add_column(Text(g.name), justify="right")
     prow = {
         "kind": [g.kind for g in problem.packaging],
         "max dies": [str(g.max_dies) for g in problem.packaging],
@@ -223,8 +270,8 @@ def problem_summary(problem: Problem, source: str) -> Group:
         "package design NRE": [money(g.design_cost) for g in problem.packaging],
     }
     for name, values in prow.items():
-        packs.add_row(name, *values)
-    blocks = Table(title="Blocks (base units)", title_justify="left")
+        packs.add_row(*cells(name, *values))
+    blocks = literal_table("Blocks (base units)")
     for col in ("name", "kind", "area mm^2", "count", "sensitivity", "spares", "repair"):
         blocks.add_column(col)
     for b in problem.block:
@@ -234,19 +281,21 @@ def problem_summary(problem: Problem, source: str) -> Group:
             else "-"
         )
         blocks.add_row(
-            b.name,
-            b.kind,
-            f"{b.area_mm2:g}",
-            str(b.count),
-            f"{b.defect_sensitivity:g}",
-            str(b.spare_choices),
-            repair,
+            *cells(
+                b.name,
+                b.kind,
+                f"{b.area_mm2:g}",
+                str(b.count),
+                f"{b.defect_sensitivity:g}",
+                str(b.spare_choices),
+                repair,
+            )
         )
-    links = Table(title="Links", title_justify="left")
+    links = literal_table("Links")
     links.add_column("blocks")
     links.add_column("GB/s", justify="right")
     for link in problem.link:
-        links.add_row(" - ".join(link.blocks), f"{link.bandwidth_gbps:g}")
+        links.add_row(*cells(" - ".join(link.blocks), f"{link.bandwidth_gbps:g}"))
     parts += [procs, packs, blocks, links]
     parts.append(
         Text(
@@ -277,31 +326,33 @@ def solution_view(solution) -> Group:
         design_breakdown(best),
     ]
     if len(solution.designs) > 1:
-        ranked = Table(title="Ranked designs", title_justify="left")
+        ranked = literal_table("Ranked designs")
         for col in ("rank", "dies", "packaging", "cost/good unit", "profit", "behind best"):
             ranked.add_column(col, justify="right" if col not in ("dies", "packaging") else "left")
         for i, d in enumerate(solution.designs, start=1):
             ranked.add_row(
-                str(i),
-                Text(short_design(d)),
-                d.packaging,
-                money(d.cost_per_good_unit),
-                money(d.profit),
-                money(best.profit - d.profit),
+                *cells(
+                    str(i),
+                    short_design(d),
+                    d.packaging,
+                    money(d.cost_per_good_unit),
+                    money(d.profit),
+                    money(best.profit - d.profit),
+                )
             )
         parts.append(ranked)
     if solution.difference:
-        diff = Table(
-            title="Why the winner beats the runner-up (per good unit)", title_justify="left"
-        )
+        diff = literal_table("Why the winner beats the runner-up (per good unit)")
         for col in ("component", "winner", "runner-up", "winner saves"):
             diff.add_column(col, justify="left" if col == "component" else "right")
         for row in solution.difference:
             diff.add_row(
-                COMPONENT_LABELS[row["component"]],
-                money(row["winner"]),
-                money(row["runner_up"]),
-                money(row["advantage"]),
+                *cells(
+                    COMPONENT_LABELS[row["component"]],
+                    money(row["winner"]),
+                    money(row["runner_up"]),
+                    money(row["advantage"]),
+                )
             )
         parts.append(diff)
     return Group(*parts)
@@ -327,7 +378,7 @@ def short_design(result: DesignResult) -> str:
 
 
 def die_contents(result: DesignResult) -> Table:
-    table = Table(title="Die designs", title_justify="left")
+    table = literal_table("Die designs")
     for col in (
         "die",
         "copies",
@@ -353,13 +404,15 @@ def die_contents(result: DesignResult) -> Table:
         )
         margin = f"{die.sigma_margin:g} sigma" if math.isfinite(die.sigma_margin) else "-"
         table.add_row(
-            die.name,
-            str(die.copies),
-            die.process,
-            f"{die.defect_density_per_cm2:.4g}",
-            margin,
-            ", ".join(f"{n} x{c}" for n, c in die.blocks.items()),
-            options,
+            *cells(
+                die.name,
+                str(die.copies),
+                die.process,
+                f"{die.defect_density_per_cm2:.4g}",
+                margin,
+                ", ".join(f"{n} x{c}" for n, c in die.blocks.items()),
+                options,
+            )
         )
     return table
 
@@ -367,19 +420,23 @@ def die_contents(result: DesignResult) -> Table:
 def mandate_view(priced) -> Group:
     """What a mandated target costs: the optimum with and without it."""
     cur = priced.free.best.currency
-    table = Table(title="Mandated targets priced", title_justify="left")
+    table = literal_table("Mandated targets priced")
     table.add_column("")
     table.add_column("design")
     table.add_column("profit", justify="right")
     table.add_row(
-        "without the mandate",
-        Text(short_design(priced.free.best)),
-        money(priced.free.best.profit, cur),
+        *cells(
+            "without the mandate",
+            short_design(priced.free.best),
+            money(priced.free.best.profit, cur),
+        )
     )
     table.add_row(
-        "under the mandate",
-        Text(short_design(priced.mandated.best)),
-        money(priced.mandated.best.profit, cur),
+        *cells(
+            "under the mandate",
+            short_design(priced.mandated.best),
+            money(priced.mandated.best.profit, cur),
+        )
     )
     need = {k: v for k, v in priced.requirements.model_dump().items() if v is not None}
     text = Text(

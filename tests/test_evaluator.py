@@ -254,3 +254,85 @@ def test_batch_pricing_equals_one_at_a_time():
         alone = ev.price_dies(die_batch(ev, specs, 1))
         for name in ("die_yield", "defect_level", "cost_per_passed_die", "area_mm2", "nre"):
             assert_allclose(getattr(alone, name)[0], getattr(cset.prices, name)[i], rtol=1e-12)
+
+
+# ---------------------------------------------------------------- rules a design breaks
+INTERPOSER = """
+[[packaging]]
+name = "si"
+kind = "silicon_interposer"
+max_dies = 4
+interface_density = "400 GB/s/mm^2"
+interposer_process = "cheap"
+interposer_area_factor = 1.0
+interposer_extra_area = "10 mm^2"
+"""
+
+
+def _tight(problem, **changes):
+    """The problem with some limits changed (the design was priced without them)."""
+    return problem.model_copy(update=changes)
+
+
+def test_design_violations_names_every_broken_rule(tiny_text, write_problem):
+    # Hand-checked limits around the fixture's 'split' design on an interposer: at
+    # 400 GB/s/mm^2 (no port area) the cpu die is 150 + 100/400 = 150.25 mm^2 (2 copies),
+    # the hub 40 x 1.05 + 200/400 = 42.5 mm^2 -> 3 dies; interposer = 1.0 x die area
+    # (343 mm^2) + 10 mm^2 = 353 mm^2.
+    from optimizer.designs import design_violations, specs_from_design
+    from optimizer.problem import Requirements
+
+    problem = load_problem(write_problem(tiny_text + INTERPOSER))
+    specs = specs_from_design(problem.design_named("split"))
+    result = evaluate_specs(Evaluator(problem), specs, "si", "split")
+    assert result.violations == []
+    assert result.carrier_area_mm2 == pytest.approx(353.0)
+    fast, cheap = problem.process
+    si = problem.packaging[2]
+    checks = [
+        (
+            _tight(problem, process=[fast.model_copy(update={"reticle_width_mm": 10.0}), cheap]),
+            "process[fast].reticle: die 'cpu' of",
+        ),
+        (
+            _tight(
+                problem, packaging=[*problem.packaging[:2], si.model_copy(update={"max_dies": 2})]
+            ),
+            "packaging[si].max_dies: 3 dies, more than 2",
+        ),
+        (
+            _tight(
+                problem,
+                packaging=[
+                    *problem.packaging[:2],
+                    si.model_copy(update={"interposer_max_area_mm2": 300.0}),
+                ],
+            ),
+            "packaging[si].interposer_max_area: interposer of 353 mm^2, above 300 mm^2",
+        ),
+    ]
+    for tight, rule in checks:
+        found = design_violations(tight, result)
+        assert len(found) == 1 and found[0].startswith(rule), found
+    # mandates: none set in the file; given explicitly they replace the file's
+    need = Requirements(min_sigma_margin=3.0, min_die_yield=0.9)
+    found = design_violations(problem, result, need)
+    assert sum(v.startswith("requirements.min_sigma_margin") for v in found) == 2
+    cpu_yield = (1 + 1.5025 * 0.1 / 2) ** -2  # negative binomial, alpha 2
+    assert (
+        found.count(
+            f"requirements.min_die_yield: die 'cpu' yields {100 * cpu_yield:.2f}%, below 90.00%"
+        )
+        == 1
+    )
+    assert design_violations(problem, result, Requirements()) == []
+
+
+def test_die_over_the_reticle_stays_an_error(tiny_text, write_problem):
+    # A die that cannot be exposed in one field cannot be made: no price, an error
+    # (rules the problem sets are priced and marked instead; see test_cli.py).
+    from optimizer.problem import ProblemError
+
+    problem = load_problem(write_problem(tiny_text, ('area = "150 mm^2"', 'area = "500 mm^2"')))
+    with pytest.raises(ProblemError, match="reticle field"):
+        evaluate_design(Evaluator(problem), problem.design_named("mono"))

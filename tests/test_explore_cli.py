@@ -3,6 +3,11 @@
 from __future__ import annotations
 
 import json
+import os
+import signal
+import subprocess
+import sys
+import time
 from pathlib import Path
 
 import pytest
@@ -285,3 +290,88 @@ def test_uncertainty_without_entries_and_bad_entry(write_problem):
     out = runner.invoke(app, ["uncertainty", str(write_problem(bad)), "--no-write"])
     assert out.exit_code == 2
     assert ": uncertain[0].path: no process named 'chep'" in out.stderr
+
+
+# ---------------------------------------------------------------- stopping a running sweep
+def _children(pid: int) -> list[tuple[int, bytes]]:
+    """(pid, command line) of the live child processes of ``pid`` (Linux /proc)."""
+    found = []
+    for entry in Path("/proc").iterdir():
+        if not entry.name.isdigit():
+            continue
+        try:
+            fields = (entry / "stat").read_text().rpartition(")")[2].split()
+            if int(fields[1]) == pid and fields[0] not in ("Z", "X"):
+                found.append((int(entry.name), (entry / "cmdline").read_bytes()))
+        except (OSError, IndexError, ValueError):
+            continue
+    return found
+
+
+def _gone(pid: int) -> bool:
+    try:
+        state = Path(f"/proc/{pid}/stat").read_text().rpartition(")")[2].split()[0]
+    except OSError:
+        return True
+    return state in ("Z", "X")  # exited, maybe not yet reaped
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
+@pytest.mark.parametrize(("signum", "code"), [(signal.SIGTERM, 143), (signal.SIGINT, 130)])
+def test_stopping_a_sweep_stops_its_workers_and_writes_nothing(
+    write_problem, tmp_path, signum, code
+):
+    # The installed command in its own process, stopped while its 2 workers solve a grid
+    # that would take far longer; source: the process table and the results folder.
+    problem = write_problem(TINY_PROBLEM)
+    results = tmp_path / "results"
+    command = [
+        sys.executable,
+        "-c",
+        "from optimizer.cli import app; app()",
+        *("sweep", str(problem), "--vary", "process.cheap.wafer_cost", "2000", "12000"),
+        *("--steps", "400", "--workers", "2", "--results", str(results)),
+    ]
+    root = Path(__file__).resolve().parents[1]
+    run = subprocess.Popen(
+        command, cwd=root, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
+    )
+    workers: list[int] = []
+    try:
+        deadline = time.monotonic() + 60
+        while len(workers) < 2 and time.monotonic() < deadline and run.poll() is None:
+            workers = [p for p, line in _children(run.pid) if b"spawn_main" in line]
+            time.sleep(0.1)
+        assert len(workers) == 2, "the sweep did not start its workers"
+        time.sleep(1.0)  # busy solving
+        run.send_signal(signum)
+        out, err = run.communicate(timeout=30)
+    finally:
+        run.kill()
+        run.wait()
+        for pid in workers:  # only if the test failed: our own leftovers, by id
+            if not _gone(pid):
+                os.kill(pid, signal.SIGKILL)
+    assert run.returncode == code, err
+    assert err.count("\n") == 1 and err.startswith("dieplan: "), err
+    assert "Traceback" not in err and out == ""
+    deadline = time.monotonic() + 5
+    while not all(_gone(p) for p in workers) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    assert all(_gone(p) for p in workers), "worker processes outlived the command"
+    assert not results.exists() or list(results.iterdir()) == []
+
+
+def test_names_with_markup_and_math_signs_print_and_draw_as_written(write_problem, tmp_path):
+    # '[bold]' would be console markup and '$\frac$' a broken math formula in a figure;
+    # both must come out as plain text (exit 0, figures written)
+    name = r"[bold]a$\\frac$b"
+    text = TINY_PROBLEM.replace('name = "cheap"', f'name = "{name}"').replace(
+        'process = "cheap"', f'process = "{name}"'
+    )
+    results = tmp_path / "results"
+    out = runner.invoke(app, ["compare", str(write_problem(text)), "--results", str(results)])
+    assert out.exit_code == 0, out.output
+    assert r"[bold]a$\frac$b" in out.stdout
+    folder = _folder(results)
+    assert (folder / "cost_by_component.svg").stat().st_size > 0

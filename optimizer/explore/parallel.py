@@ -16,19 +16,31 @@ run two solves at once (the modelling layer is not thread-safe).
 
 A task's ProblemError travels back as plain fields and is raised again here, so a bad
 input stops the run with the usual one-line message whatever executor ran it.
+
+Local workers end with their parent: on Linux the kernel signals them when the parent
+dies (``PR_SET_PDEATHSIG``), elsewhere a watchdog thread notices the parent is gone. They
+ignore Ctrl-C, which the parent handles by stopping them; an interrupted or failed
+:meth:`Runner.session` terminates its workers instead of waiting for them.
 """
 
 from __future__ import annotations
 
+import asyncio
+import ctypes
 import multiprocessing
 import os
+import signal
+import sys
 import threading
+import time
+import warnings
 from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any
 
+from optimizer.outputs import short as _short
 from optimizer.problem import ProblemError
 
 Progress = Callable[[int, int], None]  # (tasks done, tasks in all)
@@ -52,8 +64,43 @@ def solve_lock() -> threading.Lock:
     return _SOLVE_LOCK
 
 
-def _init_worker() -> None:
+# Seconds to reach a Dask scheduler before giving up with one line.
+CONNECT_TIMEOUT = 10.0
+_PR_SET_PDEATHSIG = 1  # from <linux/prctl.h>
+
+
+def max_workers() -> int:
+    """More local processes than this only slows a run down (and can exhaust memory)."""
+    return 4 * (os.cpu_count() or 1)
+
+
+def _end_with_parent(parent_pid: int) -> None:
+    """Make this worker process end when ``parent_pid`` does."""
+    if sys.platform.startswith("linux"):
+        try:
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(_PR_SET_PDEATHSIG, signal.SIGTERM, 0, 0, 0)
+        except (OSError, AttributeError):
+            pass  # the watchdog below still covers it
+    if os.getppid() != parent_pid:  # the parent died before the line above took effect
+        os._exit(1)
+
+    def watch() -> None:
+        while os.getppid() == parent_pid:
+            time.sleep(1.0)
+        os._exit(1)
+
+    threading.Thread(target=watch, name="dieplan-parent-watch", daemon=True).start()
+
+
+def _init_worker(parent_pid: int | None = None) -> None:
     os.environ["DIEPLAN_COUNT_WORKERS"] = "1"
+    # Ctrl-C reaches the whole process group; the parent alone decides and stops us
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    # our stderr is the user's terminal, where only the parent's one line may appear
+    warnings.simplefilter("ignore")
+    if parent_pid is not None:
+        _end_with_parent(parent_pid)
 
 
 @dataclass(frozen=True)
@@ -83,11 +130,26 @@ class Runner:
     session each :meth:`map` starts and stops its own.
     """
 
-    def __init__(self, workers: int = 1, scheduler: str | None = None):
+    def __init__(
+        self,
+        workers: int = 1,
+        scheduler: str | None = None,
+        connect_timeout: float | None = None,
+    ):
         if workers < 1:
-            raise ProblemError("--workers", "", f"must be at least 1 (got {workers})")
+            raise ProblemError(
+                "--workers", "", f"must be at least 1 (got {workers}); give 1 or more processes"
+            )
+        if workers > max_workers():
+            raise ProblemError(
+                "--workers",
+                "",
+                f"{workers} is more than 4 per CPU core ({max_workers()} here); "
+                "give at most that many",
+            )
         self.workers = int(workers)
-        self.scheduler = scheduler or None
+        self.scheduler = check_scheduler_address(scheduler) if scheduler else None
+        self.connect_timeout = CONNECT_TIMEOUT if connect_timeout is None else connect_timeout
         self._pool: ProcessPoolExecutor | None = None
         self._client = None
         self._depth = 0
@@ -106,19 +168,43 @@ class Runner:
         self._depth += 1
         try:
             yield self
-        finally:
+        except BaseException:
+            # interrupted or failed: stop the workers now rather than wait for their tasks
+            self._depth -= 1
+            if self._depth == 0:
+                self.close(abort=True)
+            raise
+        else:
             self._depth -= 1
             if self._depth == 0:
                 self.close()
 
-    def close(self) -> None:
-        """Stop the worker processes and the Dask client, if any."""
-        if self._pool is not None:
-            self._pool.shutdown()
-            self._pool = None
-        if self._client is not None:
-            self._client.close()
-            self._client = None
+    def start(self) -> Runner:
+        """Reach the Dask scheduler now (raises the one-line ProblemError if it cannot)."""
+        if self.scheduler:
+            self._connect()
+        return self
+
+    def close(self, abort: bool = False) -> None:
+        """Stop the worker processes and the Dask client, if any.
+
+        ``abort`` drops queued tasks and terminates running workers instead of waiting.
+        """
+        pool, self._pool = self._pool, None
+        if pool is not None:
+            if abort:
+                processes = list(getattr(pool, "_processes", {}).values())
+                pool.shutdown(wait=False, cancel_futures=True)
+                for process in processes:
+                    if process.is_alive():
+                        process.terminate()
+                for process in processes:
+                    process.join(timeout=5)
+            else:
+                pool.shutdown()
+        client, self._client = self._client, None
+        if client is not None:
+            client.close()
 
     def map(
         self,
@@ -156,6 +242,7 @@ class Runner:
                 max_workers=self.workers,
                 mp_context=multiprocessing.get_context("spawn"),
                 initializer=_init_worker,
+                initargs=(os.getpid(),),
             )
         results: list[Any] = [None] * len(tasks)
         futures = {self._pool.submit(_guarded, fn, task): i for i, task in enumerate(tasks)}
@@ -169,15 +256,12 @@ class Runner:
         from dask.distributed import Client
 
         if self._client is None:
+            timeout = self.connect_timeout
+            _probe_scheduler(self.scheduler, timeout)
             try:
-                self._client = Client(self.scheduler, timeout="10s", set_as_default=False)
+                self._client = Client(self.scheduler, timeout=f"{timeout}s", set_as_default=False)
             except (OSError, TimeoutError, ValueError) as exc:
-                raise ProblemError(
-                    "--scheduler",
-                    str(self.scheduler),
-                    f"cannot reach a Dask scheduler there ({exc}); check the address "
-                    "(tcp://HOST:PORT) or run without --scheduler",
-                ) from None
+                raise _unreachable(self.scheduler, _reason(exc)) from None
         return self._client
 
     def _dask(self, fn, tasks, progress) -> list[Any]:
@@ -190,6 +274,95 @@ class Runner:
             if progress is not None:
                 progress(done, len(tasks))
         return results
+
+
+def _unreachable(address: str, reason: str) -> ProblemError:
+    return ProblemError(
+        "--scheduler",
+        _short(address),
+        f"cannot reach a Dask scheduler there ({reason}); check that it runs and the "
+        "address, or run without --scheduler",
+    )
+
+
+def _reason(exc: BaseException) -> str:
+    text = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+    return _short(text, 80)
+
+
+def check_scheduler_address(address: str) -> str:
+    """The address if Dask can use it (``tcp://HOST:PORT``, ``HOST:PORT`` and the other
+    protocols Dask knows); otherwise the one-line ProblemError naming --scheduler."""
+    from distributed.comm.addressing import parse_address, parse_host_port
+    from distributed.comm.registry import backends
+
+    text = str(address).strip()
+    fix = "write tcp://HOST:PORT, e.g. tcp://10.0.0.5:8786"
+    try:
+        protocol, location = parse_address(text)
+    except ValueError:
+        raise ProblemError("--scheduler", _short(text), f"is not an address; {fix}") from None
+    if protocol not in backends:
+        raise ProblemError(
+            "--scheduler",
+            _short(text),
+            f"unknown protocol '{_short(protocol, 12)}'; use one of "
+            f"{sorted(b for b in backends if b != 'inproc')}; {fix}",
+        )
+    if protocol != "inproc":
+        try:
+            host, port = parse_host_port(location)
+        except ValueError:
+            raise ProblemError(
+                "--scheduler", _short(text), f"needs a host and a port; {fix}"
+            ) from None
+        if not host or not 0 < int(port) < 65536:
+            raise ProblemError(
+                "--scheduler", _short(text), f"needs a host and a port from 1 to 65535; {fix}"
+            )
+    return text
+
+
+def _probe_scheduler(address: str, timeout: float) -> None:
+    """Ask whoever listens at ``address`` who it is, within ``timeout`` seconds.
+
+    The Dask client can wait far past its own timeout on a port that accepts connections
+    but never answers, so the first contact is made here with a hard limit.
+    """
+    from distributed.comm import connect
+    from distributed.comm.addressing import parse_address
+
+    if parse_address(address)[0] == "inproc":
+        return  # in this process: nothing to reach
+    try:
+        asyncio.get_running_loop()
+        return  # inside someone's event loop: leave it to the client
+    except RuntimeError:
+        pass
+
+    async def identity() -> object:
+        comm = await connect(address, timeout=timeout)
+        try:
+            await comm.write({"op": "identity", "reply": True})
+            return await comm.read()
+        finally:
+            comm.abort()
+
+    async def limited() -> object:
+        return await asyncio.wait_for(identity(), timeout)
+
+    try:
+        reply = asyncio.run(limited())
+    except TimeoutError:
+        raise _unreachable(address, f"no answer within {timeout:g} s") from None
+    except Exception as exc:  # any failure to talk to it means it cannot be used
+        raise _unreachable(address, _reason(exc)) from None
+    if not isinstance(reply, dict) or reply.get("type") != "Scheduler":
+        raise ProblemError(
+            "--scheduler",
+            _short(address),
+            "something answers there but it is not a Dask scheduler; check the port",
+        )
 
 
 def chunks(n: int, parts: int) -> list[range]:

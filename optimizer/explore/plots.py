@@ -2,10 +2,12 @@
 
 Every function returns a :class:`matplotlib.figure.Figure` and draws nothing on screen.
 Money axes are in the problem's currency, scaled to thousands, millions or billions.
+Names from problem files are drawn as written: a '$' in a name does not start math.
 """
 
 from __future__ import annotations
 
+import functools
 import math
 
 import matplotlib
@@ -40,6 +42,17 @@ COMPONENT_LABELS = {
 }
 
 
+def literal_text(draw):
+    """Run a figure function with math parsing off, so any name draws as plain text."""
+
+    @functools.wraps(draw)
+    def wrapper(*args, **kwargs):
+        with matplotlib.rc_context({"text.parse_math": False}):
+            return draw(*args, **kwargs)
+
+    return wrapper
+
+
 def _money(value: float, _pos: object = None) -> str:
     if not math.isfinite(value):
         return ""
@@ -61,6 +74,7 @@ def _footer(fig: Figure) -> None:
     fig.text(0.01, 0.005, CAUTION, fontsize=7, color="0.4", ha="left", va="bottom")
 
 
+@literal_text
 def comparison_figure(comparison: Comparison, currency: str = "") -> Figure:
     """Stacked bars: cost per good unit of each option's winner, by component."""
     table = comparison.table[np.isfinite(comparison.table["profit"].to_numpy(dtype=float))]
@@ -98,6 +112,7 @@ def comparison_figure(comparison: Comparison, currency: str = "") -> Figure:
     return fig
 
 
+@literal_text
 def sweep_figure(sweep: SweepResult, currency: str = "") -> Figure:
     """1-D: profit of the best design of each winning kind (top) and how far each is
     behind the optimum (bottom), crossovers dashed; 2-D: map of the winning kind."""
@@ -161,6 +176,7 @@ def _finite_limits(ax: plt.Axes, sweep: SweepResult) -> None:
     ax.set_ylim(lo - 0.15 * span, hi + 0.15 * span)
 
 
+@literal_text
 def winner_map_figure(sweep: SweepResult) -> Figure:
     """2-D sweep: the winning design kind at every grid point."""
     ax_x, ax_y = sweep.axes
@@ -206,6 +222,7 @@ def _edges(centres: np.ndarray, log: bool) -> np.ndarray:
     return np.exp(edges) if log else edges
 
 
+@literal_text
 def tornado_figure(sensitivity: Sensitivity, currency: str = "") -> Figure:
     """Change in the winner's profit at the low and high end of each input's range."""
     table = sensitivity.table.iloc[::-1]  # largest swing on top
@@ -236,6 +253,7 @@ def _num(value: float) -> str:
     return f"{value:.4g}"
 
 
+@literal_text
 def uncertainty_figure(result: Uncertainty, currency: str = "") -> Figure:
     """Histogram and empirical CDF of profit for each design, P10/P50/P90 marked."""
     fig = Figure(figsize=(10.0, 4.8), layout="constrained")

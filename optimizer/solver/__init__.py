@@ -154,7 +154,9 @@ def solve(
         cset = outcome.candidates[item.selection.packaging_index]
         specs = selection_specs(evaluator, cset, item.selection)
         packaging = problem.packaging[item.selection.packaging_index].name
-        result = evaluate_specs(evaluator, specs, packaging, f"rank{rank}", source)
+        result = evaluate_specs(
+            evaluator, specs, packaging, f"rank{rank}", source, requirements=need
+        )
         if refine and rank == 1 and _has_continuous_targets(problem, specs):
             _, better = refine_targets(
                 evaluator, specs, packaging, "rank1", requirements=need, deadline=deadline

@@ -22,14 +22,9 @@ from optimizer.evaluator import Evaluator
 from optimizer.problem import Requirements
 
 
-def meets(result: DesignResult, need: Requirements) -> bool:
-    """Whether every die of a priced design meets the mandated die-level targets."""
-    for die in result.dies:
-        if need.min_die_yield is not None and die.die_yield < need.min_die_yield:
-            return False
-        if need.max_defect_level is not None and die.defect_level > need.max_defect_level:
-            return False
-    return True
+def meets(result: DesignResult) -> bool:
+    """Whether a design priced against the mandates meets every one of them."""
+    return not any(v.startswith("requirements.") for v in result.violations)
 
 
 def refine_targets(
@@ -54,7 +49,7 @@ def refine_targets(
         ]
 
     best_specs = specs
-    best = evaluate_specs(evaluator, specs, packaging, name)
+    best = evaluate_specs(evaluator, specs, packaging, name, requirements=need)
     used = sorted({s.process for s in specs})
     for _ in range(sweeps):
         improved = False
@@ -70,9 +65,12 @@ def refine_targets(
                 hi = _highest_allowed(
                     lambda log_d, pname=pname, start=best_specs: meets(
                         evaluate_specs(
-                            evaluator, with_target(start, pname, math.exp(log_d)), packaging, name
-                        ),
-                        need,
+                            evaluator,
+                            with_target(start, pname, math.exp(log_d)),
+                            packaging,
+                            name,
+                            requirements=need,
+                        )
                     ),
                     lo,
                     hi,
@@ -82,7 +80,7 @@ def refine_targets(
 
             def loss(log_d: float, pname=pname, start=best_specs) -> float:
                 trial = with_target(start, pname, math.exp(log_d))
-                return -evaluate_specs(evaluator, trial, packaging, name).profit
+                return -evaluate_specs(evaluator, trial, packaging, name, requirements=need).profit
 
             found = minimize_scalar(
                 loss, bounds=(lo, hi), method="bounded", options={"xatol": 1e-12, "maxiter": 500}
@@ -91,8 +89,8 @@ def refine_targets(
             values = [loss(x) for x in candidates]
             x = candidates[min(range(3), key=values.__getitem__)]
             trial = with_target(best_specs, pname, math.exp(x))
-            result = evaluate_specs(evaluator, trial, packaging, name)
-            if result.profit > best.profit and meets(result, need):
+            result = evaluate_specs(evaluator, trial, packaging, name, requirements=need)
+            if result.profit > best.profit and meets(result):
                 improved = improved or result.profit > best.profit * (1 + 1e-12)
                 best_specs, best = trial, result
         if not improved:

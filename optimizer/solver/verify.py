@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 
-from optimizer.designs import DesignResult
+from optimizer.designs import DesignResult, design_violations
 from optimizer.invariants import InvariantViolation
 from optimizer.problem import Problem, Requirements
 
@@ -19,13 +19,16 @@ _SLACK = 1e-9
 
 
 def design_breaks(problem: Problem, design: DesignResult, need: Requirements) -> list[str]:
-    """The rules and mandates ``design`` breaks (empty when it keeps all of them)."""
-    broken = list(design.violations)
+    """The rules and mandates ``design`` breaks (empty when it keeps all of them).
+
+    The rules an explicit design is marked against (:func:`design_violations`), plus what
+    only a solver could get wrong: every block instance placed exactly once, spare and
+    repair counts the file offers, finite costs and profit.
+    """
+    broken = design_violations(problem, design, need)
     placed: dict[str, int] = {}
-    packaging = problem.packaging[problem.packaging_index(design.packaging)]
     blocks = {b.name: b for b in problem.block}
     for die in design.dies:
-        process = problem.process[problem.process_index(die.process)]
         for name, count in die.blocks.items():
             placed[name] = placed.get(name, 0) + count * die.copies
         for name, spares in die.spares.items():
@@ -35,37 +38,11 @@ def design_breaks(problem: Problem, design: DesignResult, need: Requirements) ->
             offered = blocks[name].repair
             if offered is None or repairs not in set(offered.repair_choices) | {0}:
                 broken.append(f"die '{die.name}': {repairs} repairs of '{name}' not offered")
-        short = min(process.reticle_width_mm, process.reticle_height_mm)
-        long = max(process.reticle_width_mm, process.reticle_height_mm)
-        w, h = sorted((die.width_mm, die.height_mm))
-        if w > short * (1 + _SLACK) or h > long * (1 + _SLACK):
-            broken.append(f"die '{die.name}' exceeds the reticle field of '{process.name}'")
         if not (math.isfinite(die.cost_per_passed_die) and die.gross_dies_per_wafer > 0):
             broken.append(f"die '{die.name}' has no finite cost per passed die")
-        if need.min_die_yield is not None and die.die_yield < need.min_die_yield * (1 - _SLACK):
-            broken.append(
-                f"die '{die.name}' yield {die.die_yield:.6g} below the mandated "
-                f"{need.min_die_yield:g}"
-            )
-        if need.min_sigma_margin is not None and not (
-            die.sigma_margin >= need.min_sigma_margin * (1 - _SLACK)
-        ):
-            broken.append(
-                f"die '{die.name}' margin {die.sigma_margin:g} sigma below the mandated "
-                f"{need.min_sigma_margin:g}"
-            )
-        if need.max_defect_level is not None and die.defect_level > need.max_defect_level * (
-            1 + _SLACK
-        ):
-            broken.append(
-                f"die '{die.name}' defect level {die.defect_level:.3g} above the mandated "
-                f"{need.max_defect_level:g}"
-            )
     for name, block in blocks.items():
         if placed.get(name, 0) != block.count:
             broken.append(f"block '{name}' placed {placed.get(name, 0)} times, not {block.count}")
-    if design.n_dies > min(packaging.max_dies, problem.constraints.max_dies):
-        broken.append(f"{design.n_dies} dies exceed the die limit of '{packaging.name}'")
     if not math.isfinite(design.profit):
         broken.append("profit is not a finite number")
     return broken
