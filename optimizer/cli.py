@@ -19,6 +19,7 @@ import os
 import signal
 import sys
 import threading
+import time
 import warnings
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -451,6 +452,8 @@ def solve(
     With mandated targets (--require-... or [requirements] in the file) it solves with and
     without them and reports the profit the mandate costs.
     """
+    # the time limit is wall-clock for the whole command from here, loading included
+    deadline = None if time_limit is None else time.perf_counter() + time_limit
     from optimizer.solver import METHODS
     from optimizer.solver import solve as run_solver
     from optimizer.targets import price_requirements
@@ -465,12 +468,12 @@ def solve(
     mandate = _requirements(problem, options)
     if mandate is not None and mandate.any():
         priced = price_requirements(
-            problem, mandate, top=top, source=str(problem_path), time_limit=time_limit
+            problem, mandate, top=top, source=str(problem_path), method=method, deadline=deadline
         )
         solution, free = priced.mandated, priced.free
     else:
         solution = run_solver(
-            problem, top=top, method=method, time_limit=time_limit, source=str(problem_path)
+            problem, top=top, method=method, deadline=deadline, source=str(problem_path)
         )
         priced = free = None
     payload = solution.to_dict()

@@ -311,17 +311,21 @@ def solution_view(solution) -> Group:
     """The winner in full, the ranked list, the proof and why the winner wins."""
     best = solution.best
     cur = best.currency
-    status = (
-        "proven optimal over the stated choices"
-        if solution.proven_optimal
-        else f"best found; proven profit bound {money(solution.profit_bound, cur)}, "
-        f"gap {percent(solution.gap, 3)}"
-    )
+    if solution.proven_optimal:
+        status = "proven optimal over the stated choices"
+    elif math.isfinite(solution.profit_bound):
+        status = (
+            f"best found; proven profit bound {money(solution.profit_bound, cur)}, "
+            f"gap {percent(solution.gap, 3)}"
+        )
+    else:
+        status = "best found; no bound proven yet"
     parts: list = [
         Text.assemble(
             ("Most profitable design", "bold"),
             f"  ({solution.method}, {status}, {solution.seconds:.2f} s)",
         ),
+        Text(f"What the answer covers: {solution.proof}.") if solution.proof else Text(""),
         die_contents(best),
         design_breakdown(best),
     ]

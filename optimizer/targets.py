@@ -50,14 +50,20 @@ def price_requirements(
     top: int = 3,
     source: str = "<problem>",
     time_limit: float | None = None,
+    method: str = "milp",
+    deadline: float | None = None,
 ) -> RequirementReport:
     """Solve with and without the mandated targets (the file's own requirements dropped).
 
-    ``time_limit`` bounds both solves together (one wall-clock budget).
+    ``time_limit`` (seconds from this call) or ``deadline`` (a `time.perf_counter`
+    instant) bounds both solves together: one wall-clock budget.
     """
-    deadline = None if time_limit is None else time.perf_counter() + time_limit
-    free = solve(problem, top=top, requirements=Requirements(), source=source, deadline=deadline)
-    mandated = solve(problem, top=top, requirements=requirements, source=source, deadline=deadline)
+    if time_limit is not None:
+        limit = time.perf_counter() + time_limit
+        deadline = limit if deadline is None else min(deadline, limit)
+    common = dict(top=top, method=method, source=source, deadline=deadline)
+    free = solve(problem, requirements=Requirements(), **common)
+    mandated = solve(problem, requirements=requirements, **common)
     return RequirementReport(requirements, free, mandated)
 
 
