@@ -23,7 +23,6 @@ from optimizer.formulas import (
     defect_mixture,
     fault_coverage,
     parametric,
-    redundancy,
     wafer,
 )
 from optimizer.problem import Packaging, Problem, Process
@@ -239,61 +238,32 @@ class Evaluator:
     ) -> tuple[np.ndarray, np.ndarray]:
         """log of systematic x defect-limited yield, clustering through the D mixture.
 
-        Also returns, per salvage bin, the dies that fall in that bin per full-spec die.
+        Dies without redundancy take the model's closed form; dies with spare units or
+        array repair take the exact mixture of
+        :func:`~optimizer.formulas.defect_mixture.log_redundant_yield` (one mixture over
+        D for the whole die: its blocks share the density). Also returns, per salvage
+        bin, the dies that fall in that bin per full-spec die, each band computed
+        directly as "between m_lo and m_hi - 1 good units" (no difference of yields).
         """
         blocks = self.blocks
         redundant = (s > 0) | ((r > 0) & (q > 0))
         plain_cm2 = (q * ~redundant * unit_crit).sum(axis=1) + interface_mm2 / MM2_PER_CM2
-        params = dict(
-            clustering_alpha=process.clustering_alpha, critical_layers=process.critical_layers
-        )
         log_y = np.empty(q.shape[0])
         simple = ~redundant.any(axis=1)
         if simple.any():
             log_y[simple] = defect_mixture.log_mixed_yield(
-                process.yield_model, density[simple], plain_cm2[simple], None, **params
+                process.yield_model,
+                density[simple],
+                plain_cm2[simple],
+                None,
+                clustering_alpha=process.clustering_alpha,
+                critical_layers=process.critical_layers,
             )
         complex_rows = np.flatnonzero(~simple)
-        fraction = blocks.repairable_fraction
-
-        def mixed(rows: np.ndarray, needed_override: dict[int, np.ndarray]) -> np.ndarray:
-            # blocks with an override (salvage bands) are counted unit by unit too
-            qc, sc, rc = q[rows], s[rows], r[rows]
-            red_rows = redundant[rows].copy()
-            for b in needed_override:
-                red_rows[:, b] = True
-            crit = unit_crit[rows]
-            plain = (qc * ~red_rows * crit).sum(axis=1) + interface_mm2[rows] / MM2_PER_CM2
-            red_blocks = np.flatnonzero(red_rows.any(axis=0))
-
-            def log_factor(d: np.ndarray) -> np.ndarray:
-                # d: (m, nodes) or (nodes,). Each redundant block: k-of-n over units whose
-                # own yield includes array repair when the die carries repair for it.
-                total = np.zeros(np.broadcast_shapes(d.shape, (len(qc), 1)))
-                for b in red_blocks:
-                    total_units = (qc[:, b] + sc[:, b])[:, None]
-                    needed = needed_override.get(b, qc[:, b])[:, None]
-                    repairs = rc[:, b][:, None]
-                    a = crit[:, b][:, None]
-                    log_unit = np.where(
-                        repairs > 0,
-                        redundancy.log_array_repair_factor(a, d, fraction[b], repairs),
-                        -a * d,
-                    )
-                    # a unit of yield y behaves as one with exp(-a D) = y, i.e. a D = -log y
-                    factor_b = redundancy.log_spare_unit_factor(
-                        -log_unit, 1.0, needed, total_units - needed
-                    )
-                    # blocks without redundancy on this die are already in the plain area
-                    total += np.where(red_rows[:, b][:, None], factor_b, 0.0)
-                return total
-
-            return defect_mixture.log_mixed_yield(
-                process.yield_model, density[rows], plain, log_factor, **params
-            )
-
         if complex_rows.size:
-            log_y[complex_rows] = mixed(complex_rows, {})
+            log_y[complex_rows] = self._log_redundant_yield(
+                process, q, s, r, redundant, interface_mm2, unit_crit, density, complex_rows
+            )
         salvage = np.zeros((q.shape[0], len(self.problem.market.salvage_bin)))
         for j, b_lo, m_lo, m_hi in self._salvage_bands():
             # dies with every instance of the bin's block (one-die products)
@@ -301,12 +271,74 @@ class Evaluator:
             if rows.size == 0:
                 continue
             upper = q[rows, b_lo] if m_hi is None else np.minimum(m_hi, q[rows, b_lo])
-            at_least_lo = mixed(rows, {b_lo: np.full(rows.size, m_lo)})
-            at_least_hi = mixed(rows, {b_lo: upper})
-            band = np.exp(at_least_lo) - np.exp(at_least_hi)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                salvage[rows, j] = np.maximum(band, 0.0) / np.exp(log_y[rows])
+            log_band = self._log_redundant_yield(
+                process,
+                q,
+                s,
+                r,
+                redundant,
+                interface_mm2,
+                unit_crit,
+                density,
+                rows,
+                band=(b_lo, np.full(rows.size, m_lo), upper - 1),
+            )
+            with np.errstate(invalid="ignore"):
+                salvage[rows, j] = np.exp(log_band - log_y[rows])
         return log_y + np.log(process.systematic_yield), salvage
+
+    def _log_redundant_yield(
+        self,
+        process: Process,
+        q: np.ndarray,
+        s: np.ndarray,
+        r: np.ndarray,
+        redundant: np.ndarray,
+        interface_mm2: np.ndarray,
+        unit_crit: np.ndarray,
+        density: np.ndarray,
+        rows: np.ndarray,
+        band: tuple[int, np.ndarray, np.ndarray] | None = None,
+    ) -> np.ndarray:
+        """Exact mixed log yield of dies ``rows`` with their redundant blocks.
+
+        A redundant block carries q + s units that must keep q good; a unit's yield
+        includes array repair when the die carries repair for that block. ``band``
+        (block, lowest, highest good count) replaces one block's requirement by a
+        salvage band; that block is then counted unit by unit even without redundancy.
+        """
+        qc, sc, rc = q[rows], s[rows], r[rows]
+        red = redundant[rows].copy()
+        if band is not None:
+            red[:, band[0]] = True
+        crit = unit_crit[rows]
+        plain = (qc * ~red * crit).sum(axis=1) + interface_mm2[rows] / MM2_PER_CM2
+        cols = np.flatnonzero(red.any(axis=0))
+        on = red[:, cols]
+        units = np.where(on, (qc + sc)[:, cols], 0)
+        low = np.where(on, qc[:, cols], 0)
+        high = units.copy()
+        if band is not None:
+            at = int(np.flatnonzero(cols == band[0])[0])
+            low[:, at] = band[1]
+            high[:, at] = band[2]
+        repairs = np.where((rc[:, cols] > 0) & (qc[:, cols] > 0), rc[:, cols], 0)
+        spec = defect_mixture.RedundantBlocks(
+            unit_area_cm2=crit[:, cols],
+            total_units=units,
+            min_good=low,
+            max_good=high,
+            max_repairs=repairs,
+            repairable_fraction=np.broadcast_to(self.blocks.repairable_fraction[cols], on.shape),
+        )
+        return defect_mixture.log_redundant_yield(
+            process.yield_model,
+            density[rows],
+            plain,
+            spec,
+            clustering_alpha=process.clustering_alpha,
+            critical_layers=process.critical_layers,
+        )
 
     def _salvage_bands(self) -> list[tuple[int, int, int, int | None]]:
         """(bin index, block index, lowest good units, first count of the bin above).

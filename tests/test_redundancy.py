@@ -1,5 +1,6 @@
-"""Checks of spare units, array repair and salvage bins at a given defect density, and
-of their mixture over a clustered (gamma) density.
+"""Checks of spare units, array repair and salvage bins at a given defect density, of
+their survival given a number of defects, and of their mixture over a clustered (gamma)
+density.
 
 Each check names its outside truth: brute-force enumeration, a direct sum written in
 the test, a limiting case derived by hand, scipy as reference library, or a seeded
@@ -8,6 +9,7 @@ Monte Carlo simulation of the defect process.
 
 import itertools
 import math
+from fractions import Fraction
 
 import numpy as np
 import pytest
@@ -19,7 +21,9 @@ from scipy import stats
 from optimizer.formulas.defect_mixture import mixed_yield
 from optimizer.formulas.redundancy import (
     array_repair_factor,
+    block_survival_by_count,
     log_array_repair_factor,
+    log_block_factor,
     log_salvage_bin_probabilities,
     log_spare_unit_factor,
     salvage_bin_probabilities,
@@ -209,3 +213,107 @@ def test_salvage_bins_are_consistent_with_spare_factor():
     # Limiting case by hand: all 8 units good at a D = 2000 has log P = -8 a D exactly,
     # far below the linear underflow.
     assert_allclose(log_salvage_bin_probabilities(a, 1e4, 8)[-1], -8 * a * 1e4, rtol=1e-14)
+
+
+# --------------------------------------------------------------------------- given k defects
+
+
+def survival_by_enumeration(units, low, high, repairs, fraction, k):
+    """P(low <= good units <= high | k defects) in exact rational arithmetic, summing over
+    every placement of the k defects on the units and every repairable/fatal pattern."""
+    total = Fraction(0)
+    for placement in itertools.product(range(units), repeat=k):
+        for kinds in itertools.product((True, False), repeat=k):
+            weight = Fraction(1, units**k)
+            for repairable in kinds:
+                weight *= fraction if repairable else 1 - fraction
+            fixed = [0] * units
+            dead = [False] * units
+            for unit, repairable in zip(placement, kinds, strict=True):
+                if repairable:
+                    fixed[unit] += 1
+                else:
+                    dead[unit] = True
+            good = sum(not dead[u] and fixed[u] <= repairs for u in range(units))
+            if low <= good <= high:
+                total += weight
+    return total
+
+
+@pytest.mark.parametrize(
+    "units, low, high, repairs",
+    [(3, 2, 3, 0), (3, 1, 2, 0), (3, 2, 3, 1), (2, 1, 2, 2), (3, 1, 1, 1), (3, 0, 2, 1)],
+)
+def test_survival_given_k_defects_matches_exact_enumeration(units, low, high, repairs):
+    # Brute force with fractions: every placement of k <= 4 defects (units^k x 2^k cases).
+    fraction = Fraction(7, 10)
+    got = block_survival_by_count(units, low, repairs, float(fraction), 4, max_good=high)
+    expected = [
+        float(survival_by_enumeration(units, low, high, repairs, fraction, k)) for k in range(5)
+    ]
+    assert_allclose(got, expected, rtol=1e-14, atol=1e-300)
+
+
+def test_survival_without_repair_is_the_occupancy_distribution():
+    # Feller, Vol. 1, ch. II (occupancy): k balls in N cells hit exactly h distinct cells
+    # with probability C(N, h) h! S(k, h) / N^k, S the Stirling numbers of the second
+    # kind; computed here exactly with Python integers. 60 of 64 units needed.
+    units, needed, length = 64, 60, 200
+    stirling = [[0] * (units + 1) for _ in range(length)]
+    stirling[0][0] = 1
+    for k in range(1, length):
+        for h in range(1, units + 1):
+            stirling[k][h] = h * stirling[k - 1][h] + stirling[k - 1][h - 1]
+    expected = [
+        float(
+            Fraction(
+                sum(
+                    math.comb(units, h) * math.factorial(h) * stirling[k][h]
+                    for h in range(units - needed + 1)
+                ),
+                units**k,
+            )
+        )
+        for k in range(length)
+    ]
+    got = block_survival_by_count(units, needed, 0, 0.0, length - 1)
+    assert_allclose(got, expected, rtol=1e-12, atol=1e-300)
+    assert 0 < got[-1] < 1e-200  # the check reaches deep into the tail
+
+
+@pytest.mark.parametrize("repairs, fraction", [(0, 0.0), (4, 0.8), (16, 0.5)])
+def test_poisson_average_of_survival_is_the_fixed_density_factor(repairs, fraction):
+    # Poissonisation: with Poisson(N a D) defects on the block, sum_k P(k) pi_k is the
+    # block factor at density D, here from scipy.stats (binom with the unit yield from
+    # poisson.cdf). This identity is what the exact mixture over D rests on.
+    units, needed, a = 10, 7, 0.3
+    pi = block_survival_by_count(units, needed, repairs, fraction, 400)
+    for d in (0.05, 1.0, 4.0):
+        weights = stats.poisson.pmf(np.arange(401), units * a * d)
+        unit = math.exp(-(1 - fraction) * a * d) * stats.poisson.cdf(repairs, fraction * a * d)
+        expected = stats.binom.sf(needed - 1, units, unit)
+        assert_allclose(weights @ pi, expected, rtol=1e-12)
+
+
+def test_survival_never_rises_with_more_defects():
+    # Property: one more defect cannot make a block work ("at least" ranges only).
+    for repairs, fraction in [(0, 0.0), (3, 0.9), (16, 0.6)]:
+        pi = block_survival_by_count(12, 9, repairs, fraction, 600)
+        assert np.all(np.diff(pi) <= 1e-15 * pi[:-1])
+        assert pi[0] == 1.0
+
+
+@pytest.mark.parametrize("low, high", [(5, 8), (3, 6), (0, 2), (8, 8)])
+@pytest.mark.parametrize("repairs, fraction", [(0, 0.0), (2, 0.75)])
+def test_block_factor_matches_scipy_binomial(low, high, repairs, fraction):
+    # Reference library: scipy.stats.binom.pmf summed over the band, unit yield
+    # exp(-(1 - f) a D) P(Poisson(f a D) <= R) from scipy.stats.poisson.
+    a, total = 0.15, 8
+    d = np.array([0.01, 0.5, 3.0, 20.0])
+    unit = np.exp(-(1 - fraction) * a * d) * stats.poisson.cdf(repairs, fraction * a * d)
+    if repairs == 0:
+        unit = np.exp(-a * d)
+    k = np.arange(low, high + 1)
+    expected = stats.binom.pmf(k[None, :], total, unit[:, None]).sum(axis=1)
+    got = np.exp(log_block_factor(a, d, total, low, high, repairs, fraction))
+    assert_allclose(got, expected, rtol=1e-12, atol=1e-300)
