@@ -10,10 +10,8 @@ the solver, practical for about eight blocks.
 
 from __future__ import annotations
 
-import itertools
 import math
 import time
-from collections.abc import Iterator
 
 import numpy as np
 
@@ -25,67 +23,16 @@ from optimizer.solver.candidates import (
     build_candidates,
     enumerate_contents,
 )
+from optimizer.solver.partitions import (
+    assignments,
+    group_counts,
+    multiset_partitions,
+    price_batch,
+)
 from optimizer.solver.search import RankedSelection, SearchOutcome
 from optimizer.solver.selection import Selection
 
 CHUNK = 200_000
-
-
-def multiset_partitions(
-    total: tuple[int, ...], parts: list[tuple[int, ...]], max_parts: int
-) -> Iterator[list[tuple[int, ...]]]:
-    """Partitions of the count vector ``total`` into allowed ``parts`` (each multiset once).
-
-    Parts are produced in non-increasing lexicographic order, which makes every
-    multiset of parts appear exactly once.
-    """
-    allowed = sorted(set(parts), reverse=True)
-
-    def rec(remaining: tuple[int, ...], ceiling: tuple[int, ...], chosen: list):
-        if not any(remaining):
-            yield list(chosen)
-            return
-        if len(chosen) == max_parts:
-            return
-        for part in allowed:
-            if part > ceiling:
-                continue
-            if all(p <= r for p, r in zip(part, remaining, strict=True)):
-                chosen.append(part)
-                yield from rec(
-                    tuple(r - p for r, p in zip(remaining, part, strict=True)), part, chosen
-                )
-                chosen.pop()
-
-    yield from rec(tuple(total), tuple(total), [])
-
-
-def _assignments(groups: list[tuple[np.ndarray, int]]) -> np.ndarray:
-    """All variant choices for parts grouped by identical content (rows x parts)."""
-    per_group = [
-        np.array(list(itertools.combinations_with_replacement(variants, mult)), dtype=np.int64)
-        for variants, mult in groups
-    ]
-    rows = per_group[0]
-    for nxt in per_group[1:]:
-        rows = np.concatenate(
-            [np.repeat(rows, len(nxt), axis=0), np.tile(nxt, (len(rows), 1))], axis=1
-        )
-    return rows
-
-
-def _slots(assign: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Merge repeated variants of a row into one slot with copies (NRE paid once)."""
-    srt = np.sort(assign, axis=1)
-    same_as_prev = np.zeros(srt.shape, dtype=bool)
-    same_as_prev[:, 1:] = srt[:, 1:] == srt[:, :-1]
-    head = np.arange(srt.shape[1])[None, :].repeat(srt.shape[0], axis=0)
-    for j in range(1, srt.shape[1]):
-        head[:, j] = np.where(same_as_prev[:, j], head[:, j - 1], j)
-    copies = np.zeros(srt.shape, dtype=np.int64)
-    rows = np.repeat(np.arange(srt.shape[0]), srt.shape[1])
-    np.add.at(copies, (rows, head.ravel()), 1)
-    return srt, copies
 
 
 def exhaustive_search(
@@ -180,13 +127,13 @@ def _search_packaging(
         if deadline is not None and time.perf_counter() > deadline:
             raise OutOfTime
         buffered.pop(width, None)
-        return _price_batch(evaluator, cset, np.concatenate(buffers.pop(width)), top, revenue, best)
+        return price_batch(evaluator, cset, np.concatenate(buffers.pop(width)), top, revenue, best)
 
     for partition in multiset_partitions(total, list(variants), n_max):
-        groups = [(np.array(variants[key]), mult) for key, mult in _group_counts(partition)]
+        groups = [(np.array(variants[key]), mult) for key, mult in group_counts(partition)]
         if deadline is not None and time.perf_counter() > deadline:
             raise OutOfTime
-        rows = _assignments(groups)
+        rows = assignments(groups)
         width = rows.shape[1]
         buffers.setdefault(width, []).append(rows)
         buffered[width] = buffered.get(width, 0) + len(rows)
@@ -195,30 +142,3 @@ def _search_packaging(
     for width in list(buffers):
         designs += flush(width)
     return designs
-
-
-def _price_batch(
-    evaluator: Evaluator,
-    cset: CandidateSet,
-    rows: np.ndarray,
-    top: int,
-    revenue: float,
-    best: list[tuple[float, Selection]],
-) -> int:
-    """Price a batch of variant assignments; keep its ``top`` best in ``best``."""
-    slot_die, slot_copies = _slots(rows)
-    product = evaluator.assemble(cset.packaging_index, cset.prices, slot_die, slot_copies)
-    # total cost = revenue - profit: volume x cost + one-time costs - salvage
-    cost = revenue - product.profit
-    for i in np.argsort(cost)[:top]:
-        if math.isfinite(cost[i]):
-            pairs = [(c, k) for c, k in zip(slot_die[i], slot_copies[i], strict=True) if k]
-            best.append((float(cost[i]), Selection.of(cset.packaging_index, pairs)))
-    return len(rows)
-
-
-def _group_counts(partition: list[tuple[int, ...]]) -> list[tuple[tuple[int, ...], int]]:
-    counts: dict[tuple[int, ...], int] = {}
-    for part in partition:
-        counts[part] = counts.get(part, 0) + 1
-    return list(counts.items())

@@ -726,6 +726,7 @@ class SubProblem:
     bound: float = -math.inf  # lower bound on total cost of selections not yet cut off
     exhausted: bool = False
     failed: bool = False  # the solver gave up on it: its bound stays open, unproven
+    enumeration_tried: bool = False  # whether pricing all its designs was attempted
     scale: float = 1.0  # the model's objective is the cost divided by this
     current: Selection | None = None
     active: np.ndarray | None = None

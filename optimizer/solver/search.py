@@ -34,11 +34,18 @@ from optimizer.solver.milp import (
     relax,
     solve_round,
 )
+from optimizer.solver.partitions import enumerate_program
 from optimizer.solver.selection import Selection, price_selections
 
 # Designs whose profits differ by less than this share of the best profit are ties: the
 # proof says no design is more profitable than the winner by more than that.
 PROFIT_RTOL = 1e-9
+
+
+# after this many cut-and-price rounds a program is priced whole when it holds at most
+# ENUMERATE_BUDGET designs (vectorised pricing does that in well under a second)
+ENUMERATE_AFTER = 6
+ENUMERATE_BUDGET = 200_000
 
 
 def tie_tolerance(revenue: float, threshold_cost: float) -> float:
@@ -273,6 +280,27 @@ def milp_search(
         if out_of_time():
             timed_out = True
             break
+        if sub.rounds >= ENUMERATE_AFTER and not sub.enumeration_tried:
+            # a long cut-and-price loop means a loose bound; when the program's designs
+            # are few, pricing every one of them closes it exactly and at once
+            sub.enumeration_tried = True
+            allowed = np.unique(sub.columns.col_c[sub.keep])
+            found = enumerate_program(
+                evaluator,
+                candidates[sub.packaging_index],
+                allowed,
+                sub.n_dies,
+                top,
+                ENUMERATE_BUDGET,
+                soft_deadline(),
+            )
+            if found is not None:
+                designs, count = found
+                for total, sel in designs:
+                    exact.setdefault(sel, total)
+                sub.exhausted, sub.bound, sub.current = True, math.inf, None
+                sub.log.append(f"closed by pricing all {count} of its designs")
+                continue
         solve_round(sub, budget())
         price(sub)
     if timed_out and not any(math.isfinite(v) for v in exact.values()):
