@@ -176,3 +176,16 @@ def test_a_time_limit_during_pricing_still_reports_the_best_one_die_design(monke
     assert cut.profit_bound == math.inf and "not proven" in cut.proof
     full = solve(problem, top=1)
     assert cut.best.profit <= full.best.profit * (1 + 1e-12)
+
+
+def test_a_time_limit_with_a_packaging_that_fits_no_die():
+    # No single die fits max_die_area, so the one-die packaging prices an empty batch;
+    # under a time limit that once crashed the slice-by-slice pricing.
+    data = tomllib.loads(TINY_PROBLEM)
+    data["constraints"]["max_die_area"] = "300 mm^2"
+    data.pop("design")
+    problem = parse_problem(data, "tiny.toml")
+    limited = solve(problem, top=1, time_limit=60)
+    free = solve(problem, top=1)
+    assert limited.proven_optimal and limited.best.n_dies > 1
+    assert limited.best.profit == pytest.approx(free.best.profit, rel=1e-12)

@@ -181,7 +181,7 @@ def _price_in_chunks(evaluator: Evaluator, batch: DieBatch, deadline: float | No
     """
     if deadline is not None and time.perf_counter() > deadline:
         raise OutOfTime
-    if deadline is None:
+    if deadline is None or len(batch) == 0:
         return evaluator.price_dies(batch)
     parts = []
     first, size = 0, 1_000
