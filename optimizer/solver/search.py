@@ -110,6 +110,8 @@ def milp_search(
         problem.model_dump_json(exclude={"market", "design", "title", "note", "requirements"}),
         top,
         need.model_dump_json(),
+        # dies are priced and pruned by the share of them each salvage bin takes
+        tuple((b.block, b.min_good) for b in market.salvage_bin),
     )
     cached = candidate_cache.get(key) if candidate_cache is not None else None
     contents = enumerate_contents(evaluator) if cached is None else None
