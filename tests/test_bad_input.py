@@ -23,7 +23,11 @@ CASES = [
         ["process[fast].defect_density", "wrong dimension"],
     ),
     ("no_unit", [('area = "40 mm^2"', 'area = "40"')], ["block[io].area", "no unit"]),
-    ("negative_area", [('area = "40 mm^2"', 'area = "-40 mm^2"')], ["block[io].area", "positive"]),
+    (
+        "negative_area",
+        [('area = "40 mm^2"', 'area = "-40 mm^2"')],
+        ["block[io].area", "must be greater than or equal to 0.0001 mm^2"],
+    ),
     (
         "unknown_block_in_design",
         [("blocks = { io = 1 }", "blocks = { io = 1, gpu = 1 }")],
@@ -172,4 +176,4 @@ def test_negative_defect_density_rejected(write_problem):
     )
     result = runner.invoke(app, ["check", str(path)])
     assert result.exit_code == 2
-    assert "process[fast].defect_density: must not be negative" in result.stderr
+    assert "process[fast].defect_density: must be greater than or equal to 0 /cm^2" in result.stderr

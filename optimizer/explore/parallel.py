@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import asyncio
 import ctypes
+import gc
 import multiprocessing
 import os
 import signal
@@ -91,6 +92,17 @@ def _end_with_parent(parent_pid: int) -> None:
         os._exit(1)
 
     threading.Thread(target=watch, name="dieplan-parent-watch", daemon=True).start()
+
+
+# Workers stopped on purpose (Ctrl-C, SIGTERM) leave their queues' semaphores to the
+# resource tracker, which unlinks them but also warns on stderr after our one-line
+# message; the tracker takes its warning filters from sys.warnoptions when it starts.
+_TRACKER_FILTER = "ignore:resource_tracker:UserWarning"
+
+
+def _quiet_resource_tracker() -> None:
+    if _TRACKER_FILTER not in sys.warnoptions:
+        sys.warnoptions.append(_TRACKER_FILTER)
 
 
 def _init_worker(parent_pid: int | None = None) -> None:
@@ -200,6 +212,13 @@ class Runner:
                         process.terminate()
                 for process in processes:
                     process.join(timeout=5)
+                # let the pool's manager thread see its workers gone and release its
+                # queues, so that no semaphore is left for the resource tracker to report
+                manager = getattr(pool, "_executor_manager_thread", None)
+                if manager is not None:
+                    manager.join(timeout=5)
+                del pool
+                gc.collect()
             else:
                 pool.shutdown()
         client, self._client = self._client, None
@@ -238,6 +257,7 @@ class Runner:
     def _processes(self, fn, tasks, progress) -> list[Any]:
         if self._pool is None:
             # spawn: workers start clean, with no threads or pools inherited from here
+            _quiet_resource_tracker()
             self._pool = ProcessPoolExecutor(
                 max_workers=self.workers,
                 mp_context=multiprocessing.get_context("spawn"),

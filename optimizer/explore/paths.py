@@ -36,7 +36,13 @@ from pathlib import Path
 
 from pydantic import BaseModel
 
-from optimizer.problem import Problem, ProblemError, parse_problem, read_problem_data
+from optimizer.problem import (
+    Problem,
+    ProblemError,
+    check_feasible,
+    parse_problem,
+    read_problem_data,
+)
 from optimizer.units import (
     AREA,
     BANDWIDTH,
@@ -113,7 +119,7 @@ class FieldPath:
                 raise PathError(f"takes whole numbers only (got {value:g}); use an integer")
             return int(whole)
         if self.unit is not None:
-            # the schema leaves some quantities unchecked; none of them can be negative
+            # said before the schema's range check: a negative draw is the usual slip
             if value < 0:
                 raise PathError(f"a {self.unit.name} cannot be negative (got {value:g})")
             return f"{value!r} {self.unit_text}"
@@ -431,6 +437,12 @@ def study_from_data(data: dict, source: str = "<problem>") -> Study:
 
 
 def load_study(path: str | Path) -> Study:
-    """Read a problem file for exploration (raises ProblemError with file, field, fix)."""
+    """Read a problem file for exploration (raises ProblemError with file, field, fix).
+
+    The file as written must admit a design; scenarios derived from it need not (for them
+    "no feasible design" is a finding), so only the file gets ``check_feasible``.
+    """
     data, source = read_problem_data(path)
-    return study_from_data(data, source)
+    study = study_from_data(data, source)
+    check_feasible(study.problem, source)
+    return study
