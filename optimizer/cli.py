@@ -220,7 +220,7 @@ class OneLineGroup(TyperGroup):
         except _click.exceptions.ClickException as error:
             say(error.format_message())
             code = getattr(error, "exit_code", 1)
-        except _click.exceptions.Abort:
+        except typer.Abort:
             say("aborted")
             code = 1
         if not standalone_mode:
@@ -339,6 +339,13 @@ def check(problem_path: ProblemPath) -> None:
     problem = load_problem(problem_path)
     check_uncertain(problem, str(problem_path))
     evaluator = Evaluator(problem)
+    if problem.requirements.any():
+        # the mandate check solve runs before it reports "no design"
+        from optimizer.solver.infeasibility import explain_requirements
+
+        reason = explain_requirements(evaluator, problem.requirements)
+        if reason is not None:
+            raise ProblemError(str(problem_path), "requirements", reason)
     results = [evaluate_design(evaluator, d, str(problem_path)) for d in problem.design]
     console = _console()
     console.print(report.problem_summary(problem, str(problem_path)))

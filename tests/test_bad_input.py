@@ -177,3 +177,16 @@ def test_negative_defect_density_rejected(write_problem):
     result = runner.invoke(app, ["check", str(path)])
     assert result.exit_code == 2
     assert "process[fast].defect_density: must be greater than or equal to 0 /cm^2" in result.stderr
+
+
+def test_check_refuses_a_mandate_no_die_can_meet(write_problem):
+    # solve rejects a file whose mandated die yield no die reaches; check must too.
+    # Outside truth: the compute block alone (150 mm^2 on 'fast', 0.1 /cm^2, negative
+    # binomial alpha 2) yields (1 + 1.5 x 0.1 / 2)^-2 = 0.865, below 0.9999.
+    path = write_problem(TINY_PROBLEM + "\n[requirements]\nmin_die_yield = 0.9999\n")
+    for command in ("check", "solve"):
+        args = [command, str(path)] + (["--no-write"] if command == "solve" else [])
+        result = runner.invoke(app, args)
+        assert result.exit_code == 2, result.output
+        message = result.stderr.strip()
+        assert "\n" not in message and "requirements" in message, message

@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 import time
 import tomllib
+import warnings
 from dataclasses import replace
 from pathlib import Path
 
@@ -189,3 +190,41 @@ def test_a_time_limit_with_a_packaging_that_fits_no_die():
     free = solve(problem, top=1)
     assert limited.proven_optimal and limited.best.n_dies > 1
     assert limited.best.profit == pytest.approx(free.best.profit, rel=1e-12)
+
+
+def test_interposers_too_large_for_their_wafer_are_infeasible_not_nan():
+    # A swept scenario can shrink the interposer's wafer below the interposer: such
+    # designs cannot be made. The bound must stay finite and the answer equal brute
+    # force, with no floating-point warnings (they would print before the answer).
+    data = tomllib.loads(TINY_PROBLEM)
+    data.pop("design")
+    small = dict(data["process"][1], name="small_wafer", wafer_diameter="25 mm")
+    small["edge_exclusion"] = "1 mm"
+    data["process"].append(small)
+    data["packaging"].append(
+        {
+            "name": "bridge",
+            "kind": "silicon_interposer",
+            "max_dies": 4,
+            "bond_cost_per_die": 3.0,
+            "bond_yield": 0.99,
+            "carrier_cost": 20.0,
+            "package_cost": 10.0,
+            "final_test_cost": 6.0,
+            "interface_density": "400 GB/s/mm^2",
+            "port_area": "0.2 mm^2",
+            "interposer_process": "small_wafer",
+            "interposer_area_factor": 1.1,
+            "interposer_extra_area": "20 mm^2",
+            "interposer_max_area": "2000 mm^2",
+        }
+    )
+    problem = parse_problem(data, "interposer.toml")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        milp = solve(problem, top=3, refine=False)
+    brute = solve(problem, top=3, method="exhaustive", refine=False)
+    assert milp.proven_optimal
+    assert [d.profit for d in milp.designs] == pytest.approx(
+        [d.profit for d in brute.designs], rel=1e-12
+    )

@@ -86,6 +86,18 @@ def carrier_underestimator(
     """
     grid = np.linspace(area_lo, max(area_hi, area_lo + 1e-6), points)
     values = evaluator.carrier_cost(packaging, grid).cost
+    # areas whose carrier cannot be made (no site on its wafer) hold no design: any
+    # bound is valid there, so the hull is built over the buildable areas only
+    finite = np.isfinite(values)
+    if not finite.any():
+        return np.array([0.0]), np.array([0.0])
+    last = int(np.flatnonzero(finite)[-1])
+    if last + 1 < grid.size:
+        # S is finite somewhere up to the next grid point and at least S(last) there
+        values = np.r_[values[: last + 1], values[last]]
+        grid = grid[: last + 2]
+    else:
+        grid, values = grid[finite], values[finite]
     values = np.minimum.accumulate(values[::-1])[::-1]  # guard: never above a later value
     xs = np.concatenate([grid[:-1], grid[1:]])
     ys = np.concatenate([values[:-1], values[:-1]])
