@@ -19,6 +19,9 @@ from optimizer.evaluator import Evaluator
 from optimizer.solver.candidates import CandidateSet
 from optimizer.solver.selection import Selection
 
+MAX_CANDIDATES = 5_000
+MAX_CONTENTS = 400
+
 
 def multiset_partitions(
     total: tuple[int, ...], parts: list[tuple[int, ...]], max_parts: int
@@ -123,12 +126,24 @@ def enumerate_program(
     problem = evaluator.problem
     revenue = problem.market.unit_price * problem.market.volume
     total = tuple(int(x) for x in evaluator.blocks.count)
+    allowed = np.asarray(allowed, dtype=np.int64)
+    # the walk over partitions visits every content at every step: only for programs
+    # with few candidate dies (the integer program is the better tool for the others)
+    if allowed.size > MAX_CANDIDATES:
+        return None
     variants: dict[tuple, list[int]] = {}
-    for i in np.asarray(allowed, dtype=np.int64):
+    for i in allowed:
         variants.setdefault(tuple(int(v) for v in cset.instances[i]), []).append(int(i))
+    if len(variants) > MAX_CONTENTS:
+        return None
     partitions = []
-    count = 0
+    count = visited = 0
     for partition in multiset_partitions(total, list(variants), n_dies):
+        # partitions into fewer parts are walked but not priced: they count towards
+        # the budget too, so that a large program is given up quickly
+        visited += 1
+        if visited > budget:
+            return None
         if len(partition) != n_dies:
             continue
         groups = group_counts(partition)

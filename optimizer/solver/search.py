@@ -46,6 +46,8 @@ PROFIT_RTOL = 1e-9
 # ENUMERATE_BUDGET designs (vectorised pricing does that in well under a second)
 ENUMERATE_AFTER = 6
 ENUMERATE_BUDGET = 200_000
+# before its first integer program, a program is priced whole if it has this few designs
+ENUMERATE_FIRST = 20_000
 
 
 def tie_tolerance(revenue: float, threshold_cost: float) -> float:
@@ -251,6 +253,25 @@ def milp_search(
         value = bound.value
         relaxed.append((value, columns, bound))
         usable = columns.usable
+        # a program with few designs is priced whole: cheaper than one integer program
+        few_designs = enumerate_program(
+            evaluator,
+            candidates[columns.packaging_index],
+            np.unique(columns.col_c[_screen(bound, usable, threshold())]),
+            columns.n_dies,
+            top,
+            ENUMERATE_FIRST,
+            soft_deadline(),
+        )
+        if few_designs is not None:
+            designs, count = few_designs
+            for total, sel in designs:
+                exact.setdefault(sel, total)
+            log.append(
+                f"[{problem.packaging[columns.packaging_index].name}, {columns.n_dies} dies] "
+                f"closed by pricing all {count} of its designs"
+            )
+            continue
         # unless the screen already leaves a small program, a small program over the
         # least-reduced-cost columns tightens the threshold first, so that the screen
         # drops as many columns as possible
