@@ -203,3 +203,17 @@ def test_long_cut_loops_are_closed_by_pricing_every_design(seed):
     assert milp.proven_optimal
     assert milp.best.profit == pytest.approx(brute.best.profit, rel=RTOL, abs=RTOL)
     assert any("closed by pricing all" in line for line in milp.log)
+
+
+def test_interposer_relaxation_keeps_a_finite_bound():
+    # Seed 31105 (low fault coverage, silicon interposer): the relaxation's carrier
+    # variable had no upper bound, a -1e-12 reduced cost on it made the Lagrangian bound
+    # minus infinity, and without a screen each integer-program round took seconds.
+    problem = parse_problem(random_problem(31105), "seed31105")
+    milp = solve(problem, top=3, method="milp", refine=False)
+    brute = solve(problem, top=3, method="exhaustive", refine=False)
+    assert milp.proven_optimal
+    assert [d.profit for d in milp.designs] == pytest.approx(
+        [d.profit for d in brute.designs], rel=RTOL
+    )
+    assert not any("relaxation -inf" in line for line in milp.log)

@@ -442,6 +442,21 @@ class _LinearProgram:
     constant: float
 
 
+def _carrier_top(columns: Columns) -> float:
+    """Most the carrier variable needs: its under-estimator at the largest total area.
+
+    A finite upper bound cuts off no selection (the variable sits at the under-estimator,
+    which is non-decreasing, and no selection exceeds the area), and it keeps the
+    Lagrangian bound finite when the solver leaves a tiny negative reduced cost on it.
+    """
+    area = columns.area_cap
+    if not math.isfinite(area):
+        area = (
+            float(columns.area.max()) * max(columns.die_counts[1], 1) if columns.area.size else 0.0
+        )
+    return float(np.max(columns.carrier_intercepts + columns.carrier_slopes * area))
+
+
 def _linear_program(columns: Columns) -> _LinearProgram:
     """The relaxation's arrays: variables [w, y targets, carrier]; rows cover, count,
     once, targets, area cap and carrier under-estimator."""
@@ -462,7 +477,9 @@ def _linear_program(columns: Columns) -> _LinearProgram:
             row_lower=row_lower,
             row_upper=row_upper,
             col_lower=lent.col_lower,
-            col_upper=np.r_[columns.usable.astype(float), [np.inf] if interposer else []],
+            col_upper=np.r_[
+                columns.usable.astype(float), [_carrier_top(columns)] if interposer else []
+            ],
             cost=np.r_[columns.cost, [columns.carrier_factor] if interposer else []],
             constant=columns.constant,
         )
@@ -511,7 +528,11 @@ def _linear_program(columns: Columns) -> _LinearProgram:
         row_lower=np.concatenate(lower).astype(float),
         row_upper=np.concatenate(upper).astype(float),
         col_lower=np.zeros(n_var),
-        col_upper=np.r_[columns.usable.astype(float), np.ones(n_y), [np.inf] if interposer else []],
+        col_upper=np.r_[
+            columns.usable.astype(float),
+            np.ones(n_y),
+            [_carrier_top(columns)] if interposer else [],
+        ],
         cost=np.r_[columns.cost, y_cost, [columns.carrier_factor] if interposer else []].astype(
             float
         ),
