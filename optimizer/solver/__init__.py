@@ -145,8 +145,8 @@ def solve(
         raise ProblemError(
             source,
             "--time-limit",
-            f"no design found within the time limit ({outcome.seconds:.1f} s spent); "
-            "raise --time-limit",
+            "no design found within the time limit (it counts from the start of the "
+            "command, loading and pricing included); raise --time-limit",
         )
     designs = []
     refined_gain = 0.0
