@@ -33,7 +33,7 @@ from typer import _click
 from typer.core import TyperGroup
 
 from optimizer import __version__, report
-from optimizer.designs import evaluate_design
+from optimizer.designs import designs_toml, evaluate_design
 from optimizer.evaluator import Evaluator
 from optimizer.invariants import InvariantViolation
 from optimizer.outputs import (
@@ -498,6 +498,8 @@ def solve(
                 "ranked.csv": text_writer(_ranked_csv(solution)),
                 "solver.log": text_writer("\n".join(solution.log) + "\n"),
                 "problem.toml": copy_writer(problem_path),
+                # the ranked designs as [[design]] tables `evaluate` re-prices exactly
+                "designs.toml": text_writer(designs_toml(solution.designs, problem=problem)),
             },
         )
     if as_json:

@@ -12,6 +12,7 @@ is priced, with every broken rule listed by :func:`design_violations`.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import asdict, dataclass, replace
 
 import numpy as np
@@ -412,3 +413,100 @@ def specs_from_result(result: DesignResult) -> list[DieSpec]:
         )
         for die in result.dies
     ]
+
+
+# ---------------------------------------------------------------- designs as TOML
+TOML_HEADER = (
+    "# Written by dieplan. Paste under the problem file; `dieplan evaluate` then re-prices\n"
+    "# each design from these choices to the figures the run reported.\n"
+)
+
+
+def _toml_string(text: str) -> str:
+    """A TOML basic string; names are printable (validated), but quote and escape anyway."""
+    out = []
+    for ch in text:
+        if ch in '"\\':
+            out.append("\\" + ch)
+        elif ord(ch) < 0x20 or ord(ch) == 0x7F:
+            out.append(f"\\u{ord(ch):04X}")
+        else:
+            out.append(ch)
+    return '"' + "".join(out) + '"'
+
+
+def _toml_key(text: str) -> str:
+    # bare keys read better; anything else is quoted
+    return text if re.fullmatch(r"[A-Za-z0-9_-]+", text) else _toml_string(text)
+
+
+def _toml_float(x: float) -> str:
+    # repr is the shortest text that parses back to the same float: at most 17
+    # significant digits, an exponent below 1e-4, so within the 20-digit quantity grammar
+    return repr(float(x))
+
+
+def _inline(table: dict[str, int]) -> str:
+    items = ", ".join(f"{_toml_key(k)} = {int(v)}" for k, v in table.items() if v)
+    return "{ " + items + " }" if items else "{}"
+
+
+def _design_body(problem: Problem | None, result: DesignResult, name: str) -> str:
+    targets = {}
+    for die in result.dies:
+        process = (
+            problem.process[problem.process_index(die.process)] if problem is not None else None
+        )
+        # without a curve the base density is the only target and the file may not name one
+        if process is not None and process.defect_reduction is None:
+            continue
+        targets.setdefault(die.process, f"{_toml_float(die.defect_density_per_cm2)} /cm^2")
+    lines = [
+        "[[design]]",
+        f"name = {_toml_string(name)}",
+        f"packaging = {_toml_string(result.packaging)}",
+    ]
+    if targets:
+        pairs = ", ".join(f"{_toml_key(p)} = {_toml_string(d)}" for p, d in targets.items())
+        lines.append(f"defect_targets = {{ {pairs} }}")
+    for die in result.dies:
+        lines += [
+            "",
+            "[[design.die]]",
+            f"name = {_toml_string(die.name)}",
+            f"process = {_toml_string(die.process)}",
+            f"copies = {int(die.copies)}",
+            f"blocks = {_inline(die.blocks)}",
+            f"spares = {_inline(die.spares)}",
+            f"repair = {_inline(die.repair)}",
+        ]
+        # no key means no margin modelled (no soft-yield loss), as the solver's inf
+        if math.isfinite(die.sigma_margin):
+            lines.append(f"sigma_margin = {_toml_float(die.sigma_margin)}")
+        lines.append(f"critical_area_option = {int(die.critical_area_option)}")
+    return "\n".join(lines) + "\n"
+
+
+def design_toml(
+    result: DesignResult, name: str | None = None, *, problem: Problem | None = None
+) -> str:
+    """A ``[[design]]`` TOML snippet stating every choice of a priced design.
+
+    Appended to the problem file it came from, ``evaluate`` re-prices it to the same
+    figures: numbers are written exactly (shortest round-trip text). Defect targets are
+    written for every process used; with ``problem`` given, processes without a
+    defect_reduction curve are left out, since their base density is the only target and
+    the file may not name it.
+    """
+    return TOML_HEADER + "\n" + _design_body(problem, result, name or result.design)
+
+
+def designs_toml(
+    results: list[DesignResult], *, problem: Problem | None = None, prefix: str = "solved_rank"
+) -> str:
+    """Ranked designs as one paste-ready TOML text, named ``<prefix>1``, ``<prefix>2``..."""
+    bodies = [
+        _design_body(problem, result, f"{prefix}{rank}")
+        for rank, result in enumerate(results, start=1)
+    ]
+    return TOML_HEADER + "\n" + "\n".join(bodies)

@@ -347,6 +347,7 @@ def test_solve_command_writes_run_folder_and_json(tmp_path, write_problem, tiny_
         "ranked.csv",
         "solver.log",
         "problem.toml",
+        "designs.toml",
     }
     assert payload["proven_optimal"] is True
     assert payload["best"]["profit"] == pytest.approx(
