@@ -884,7 +884,10 @@ def validate_references(problem: Problem, source: str) -> None:
             process = processes[pname]
             allowed = [d for d, _, _ in process.defect_targets()]
             curve = process.defect_reduction
-            if (
+            base = process.defect_density_per_cm2
+            # the base density is always on offer (no reduction bought), curve or not
+            at_base = abs(density - base) <= 1e-12 * base
+            if not at_base and (
                 curve is None
                 or (
                     curve.form == "table" and not any(abs(a - density) <= 1e-9 * a for a in allowed)

@@ -27,9 +27,10 @@ from typer.testing import CliRunner
 from optimizer.cli import app
 from optimizer.designs import design_toml, designs_toml, evaluate_design
 from optimizer.evaluator import Evaluator
-from optimizer.problem import load_problem, parse_problem
+from optimizer.problem import ProblemError, load_problem, parse_problem
 from optimizer.solver import solve
 from optimizer.units import DEFECT_DENSITY, to_base
+from tests.conftest import TINY_PROBLEM
 from tests.random_problems import random_problem
 
 RTOL = 1e-12
@@ -191,3 +192,27 @@ def test_designs_toml_names_ranks_in_order():
     names = [d["name"] for d in tomllib.loads(text)["design"]]
     assert names == ["solved_rank1", "solved_rank2"]
     assert text.count("# Written by dieplan") == 1
+
+
+def test_a_process_without_a_curve_accepts_its_base_density_as_target(write_problem):
+    # Stating the base density (no reduction bought) changes nothing: same price as
+    # leaving the target out. Any other density on such a process is refused.
+    plain = load_problem(write_problem(TINY_PROBLEM, name="plain.toml"))
+    stated = load_problem(
+        write_problem(
+            TINY_PROBLEM,
+            ('name = "split"\n', 'name = "split"\ndefect_targets = { cheap = "0.08 /cm^2" }\n'),
+            name="stated.toml",
+        )
+    )
+    a = evaluate_design(Evaluator(plain), plain.design_named("split"))
+    b = evaluate_design(Evaluator(stated), stated.design_named("split"))
+    assert a.profit == b.profit and a.cost_per_good_unit == b.cost_per_good_unit
+    with pytest.raises(ProblemError, match="defect_targets"):
+        load_problem(
+            write_problem(
+                TINY_PROBLEM,
+                ('name = "split"\n', 'name = "split"\ndefect_targets = { cheap = "0.07 /cm^2" }\n'),
+                name="other.toml",
+            )
+        )
