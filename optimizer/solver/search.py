@@ -176,6 +176,25 @@ def milp_search(
             return deadline
         return deadline - reserve
 
+    def price_whole(columns: Columns, kept: np.ndarray, most: int) -> int | None:
+        """Price every design of a program from its kept columns, if at most ``most``;
+        the number priced, or None (too many, or out of time)."""
+        found = enumerate_program(
+            evaluator,
+            candidates[columns.packaging_index],
+            np.unique(columns.col_c[kept]),
+            columns.n_dies,
+            top,
+            most,
+            soft_deadline(),
+        )
+        if found is None:
+            return None
+        designs, count = found
+        for total, sel in designs:
+            exact.setdefault(sel, total)
+        return count
+
     def budget() -> float | None:
         soft = soft_deadline()
         return None if soft is None else soft - time.perf_counter()
@@ -254,19 +273,8 @@ def milp_search(
         relaxed.append((value, columns, bound))
         usable = columns.usable
         # a program with few designs is priced whole: cheaper than one integer program
-        few_designs = enumerate_program(
-            evaluator,
-            candidates[columns.packaging_index],
-            np.unique(columns.col_c[_screen(bound, usable, threshold())]),
-            columns.n_dies,
-            top,
-            ENUMERATE_FIRST,
-            soft_deadline(),
-        )
-        if few_designs is not None:
-            designs, count = few_designs
-            for total, sel in designs:
-                exact.setdefault(sel, total)
+        count = price_whole(columns, _screen(bound, usable, threshold()), ENUMERATE_FIRST)
+        if count is not None:
             log.append(
                 f"[{problem.packaging[columns.packaging_index].name}, {columns.n_dies} dies] "
                 f"closed by pricing all {count} of its designs"
@@ -307,20 +315,8 @@ def milp_search(
             # a long cut-and-price loop means a loose bound; when the program's designs
             # are few, pricing every one of them closes it exactly and at once
             sub.enumeration_tried = True
-            allowed = np.unique(sub.columns.col_c[sub.keep])
-            found = enumerate_program(
-                evaluator,
-                candidates[sub.packaging_index],
-                allowed,
-                sub.n_dies,
-                top,
-                ENUMERATE_BUDGET,
-                soft_deadline(),
-            )
-            if found is not None:
-                designs, count = found
-                for total, sel in designs:
-                    exact.setdefault(sel, total)
+            count = price_whole(sub.columns, sub.keep, ENUMERATE_BUDGET)
+            if count is not None:
                 sub.exhausted, sub.bound, sub.current = True, math.inf, None
                 sub.log.append(f"closed by pricing all {count} of its designs")
                 continue
