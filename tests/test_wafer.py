@@ -96,7 +96,7 @@ def test_classic_vectorised_equals_scalar_loop():
 
 
 def test_usable_radius_definition():
-    # MODEL.md section 3 (common practice): R = wafer diameter / 2 - edge exclusion.
+    # Common practice: R = wafer diameter / 2 - edge exclusion.
     assert usable_radius_mm(300.0, 3.0) == pytest.approx(147.0, abs=1e-12)
     assert usable_radius_mm(200.0, 0.0) == pytest.approx(100.0, abs=1e-12)
     with pytest.raises(ValueError):
@@ -166,7 +166,7 @@ def test_few_large_squares_hand_derived(side_over_radius, expected):
 def test_exact_never_below_brute_force_scan(radius, width, height):
     # Brute force: independent 60 x 60 scan of offsets (above). The exact search must
     # match or beat every scanned offset; it may beat the scan because the best offset
-    # window can be narrower than the scan step (MODEL.md section 3).
+    # window can be narrower than the scan step (common practice; hence the touching search).
     exact = gross_dies_exact(radius, width, height)
     scan = brute_force_best(radius, width, height)
     assert exact >= scan
@@ -214,7 +214,7 @@ def test_wafer_map_sites_inside_and_disjoint(radius, width, height):
     aspect=st.floats(min_value=1.0, max_value=1.2),
 )
 def test_exact_near_classic_for_near_square_dies(area, aspect):
-    # MODEL.md section 3 (common practice): for near-square mid-size dies the exact count
+    # Common practice: for near-square mid-size dies the exact count
     # is at or a few percent above the classic formula. Measured here on a 300 mm wafer:
     # about +0.5 % at 10 mm^2 rising to about +10 % near 360 mm^2, so the upper bound is
     # wider above 300 mm^2 where the dies are already large.
@@ -227,7 +227,7 @@ def test_exact_near_classic_for_near_square_dies(area, aspect):
 
 @pytest.mark.parametrize("area", [10.0, 20.0, 30.0])
 def test_classic_overestimates_long_thin_dies(area):
-    # MODEL.md section 3 (common practice): for long thin dies (aspect above about 3) the
+    # Common practice: for long thin dies (aspect above about 3) the
     # formula overestimates, since it ignores the shape. At 4:1 the effect is small (a
     # few dies in thousands, measured) and shows for small dies; the exact count also
     # drops below that of the square die of the same area.
@@ -240,7 +240,7 @@ def test_classic_overestimates_long_thin_dies(area):
 
 @pytest.mark.parametrize("area", [25.0, 100.0, 200.0])
 def test_classic_overestimates_very_thin_dies(area):
-    # MODEL.md section 3 (common practice), at 8:1 the overestimate is clear at every
+    # Common practice: at 8:1 the overestimate is clear at every
     # mid size, by more than 1 %.
     width, height = die_shape_mm(area, 8.0)
     thin = gross_dies_exact(150.0, float(width), float(height))
@@ -249,7 +249,7 @@ def test_classic_overestimates_very_thin_dies(area):
 
 @pytest.mark.parametrize("side", [50.0, 60.0, 75.0])
 def test_classic_underestimates_very_large_dies(side):
-    # MODEL.md section 3 (common practice): for very large dies the formula
+    # Common practice: for very large dies the formula
     # underestimates badly, by tens of percent (its edge term overcounts the loss).
     exact = gross_dies_exact(150.0, side, side)
     assert exact >= 1.2 * gross_dies_classic(300.0, side * side)
