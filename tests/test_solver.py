@@ -385,8 +385,14 @@ def test_time_limit_returns_best_found_with_its_gap():
     from synthetic import synthetic_problem
 
     problem = synthetic_problem(10)
-    quick = solve(problem, top=1, time_limit=0.05)
     full = solve(problem, top=1)
+    try:
+        quick = solve(problem, top=1, time_limit=0.05)
+    except ProblemError as error:
+        # the limit covers pricing too: on a slow machine nothing may be priced in time,
+        # which must end in the one clean message, not a wrong answer
+        assert "time limit" in str(error)
+        return
     assert full.proven_optimal
     assert quick.best.profit <= full.best.profit * (1 + 1e-12)
     assert quick.profit_bound >= full.best.profit * (1 - 1e-9)
