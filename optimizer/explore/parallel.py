@@ -171,8 +171,8 @@ class Runner:
         if self.scheduler:
             return f"dask cluster at {self.scheduler}"
         if self.workers == 1:
-            return "this process"
-        return f"{self.workers} local processes"
+            return "one worker (this command)"
+        return f"{self.workers} local workers"
 
     @contextmanager
     def session(self) -> Iterator[Runner]:
