@@ -200,6 +200,66 @@ def _model_text(p) -> str:
     return p.yield_model
 
 
+def _choices_summary(problem: Problem) -> list:
+    """The priced choices and rules beyond processes and blocks, as check understood them."""
+    lines: list[str] = []
+    for p in problem.process:
+        curve = p.defect_reduction
+        if curve is not None:
+            targets = ", ".join(f"{d:.4g}" for d, _, _ in p.defect_targets())
+            if curve.form == "log_ratio":
+                lines.append(
+                    f"defect targets on {p.name}: any D in [{curve.floor_per_cm2:g}, "
+                    f"{p.defect_density_per_cm2:g}] /cm^2 for {money(curve.one_time_per_log)} "
+                    f"once + {money(curve.per_wafer_per_log)} per wafer per ln(D_base/D); "
+                    f"levels tried {targets}"
+                )
+            else:
+                lines.append(f"defect targets on {p.name}: table, D = {targets} /cm^2")
+        if p.margin is not None:
+            sides = "two-sided" if p.margin.two_sided else "one-sided"
+            pairs = ", ".join(
+                f"{k:g} sigma (+{100 * o:g}% area)"
+                for k, o in zip(p.margin.sigma, p.margin.area_overhead, strict=True)
+            )
+            lines.append(f"design margins on {p.name} ({sides}): {pairs}")
+    if problem.critical_area_reduction is not None:
+        options = problem.critical_area_reduction.options()
+        lines.append(
+            "critical-area options: "
+            + ", ".join(
+                f"{i}: sensitivity x{f:g}, +{100 * o:g}% area" for i, (f, o) in enumerate(options)
+            )
+        )
+    for sbin in problem.market.salvage_bin:
+        lines.append(
+            f"salvage bin {sbin.name}: one-die units with at least {sbin.min_good} good "
+            f"{sbin.block}, {money(sbin.unit_price)} each, demand {sbin.demand:,.0f}"
+        )
+    limits = problem.constraints
+    for group in limits.keep_together:
+        lines.append(f"keep together (same die, same share of each): {', '.join(group)}")
+    for group in limits.keep_apart:
+        lines.append(f"keep apart (never on one die): {', '.join(group)}")
+    need = problem.requirements
+    mandates = [
+        f"die yield at least {need.min_die_yield:g}" if need.min_die_yield is not None else "",
+        f"margin at least {need.min_sigma_margin:g} sigma"
+        if need.min_sigma_margin is not None
+        else "",
+        f"defect level at most {need.max_defect_level:g}"
+        if need.max_defect_level is not None
+        else "",
+    ]
+    if need.any():
+        lines.append(
+            "requirements (priced against the optimum): " + "; ".join(m for m in mandates if m)
+        )
+    for entry in problem.uncertain:
+        lines.append(f"uncertain: {entry.path} ({entry.distribution})")
+    return [Text(line) for line in lines]
+
+
 def problem_summary(problem: Problem, source: str) -> Group:
     """What the loader understood, in base units."""
     m = problem.market
@@ -296,7 +356,7 @@ def problem_summary(problem: Problem, source: str) -> Group:
     links.add_column("GB/s", justify="right")
     for link in problem.link:
         links.add_row(*cells(" - ".join(link.blocks), f"{link.bandwidth_gbps:g}"))
-    parts += [procs, packs, blocks, links]
+    parts += [procs, packs, blocks, links, *_choices_summary(problem)]
     parts.append(
         Text(
             f"design cost: {money(problem.design_cost.per_die_design)} per die design + "

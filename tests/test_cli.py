@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import pytest
 from typer.testing import CliRunner
@@ -209,3 +210,21 @@ def test_interrupt_while_writing_is_one_line_exit_130_nothing_left(
     assert out.exit_code == 130
     assert out.stderr.startswith("dieplan: interrupted") and out.stderr.count("\n") == 1
     assert list(results.iterdir()) == []  # no run folder, no temporary folder
+
+
+def test_check_echoes_every_priced_choice_and_rule():
+    # Outside truth: the demo file itself; each section it states is echoed back.
+    demo = Path(__file__).resolve().parents[1] / "problems" / "server_processor.toml"
+    result = CliRunner().invoke(app, ["check", str(demo)])
+    assert result.exit_code == 0, result.output
+    text = " ".join(result.stdout.split())
+    for words in (
+        "defect targets on leading: any D in [0.08, 0.22] /cm^2",
+        "defect targets on mature: table, D = 0.07, 0.05 /cm^2",
+        "design margins on leading (two-sided): 3 sigma",
+        "critical-area options: 0: sensitivity x1",
+        "salvage bin fourteen_cluster: one-die units with at least 14 good compute_cluster",
+        "keep together (same die, same share of each): memory_controller, analog_clocking",
+        "uncertain: process.leading.defect_density (lognormal)",
+    ):
+        assert words in text, words
