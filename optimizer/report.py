@@ -59,20 +59,26 @@ def by_rules_then_profit(results: list[DesignResult]) -> list[DesignResult]:
 
 
 def money(value: float, currency: str = "") -> str:
-    if not math.isfinite(value):
-        return "inf"
-    sign = "-" if value < 0 else ""
-    value = abs(value)
+    """Money in one style: thousands separated, M and bn for large sums, never "-0.00"."""
     suffix = f" {currency}" if currency else ""
-    if value >= 1e9:
-        return f"{sign}{value / 1e9:,.3f} bn{suffix}"
-    if value >= 1e6:
-        return f"{sign}{value / 1e6:,.2f} M{suffix}"
-    return f"{sign}{value:,.2f}{suffix}"
+    if not math.isfinite(value):
+        return ("-inf" if value < 0 else "inf") + suffix
+    size = abs(value)
+    if size >= 1e9:
+        text = f"{size / 1e9:,.3f} bn"
+    elif size >= 1e6:
+        text = f"{size / 1e6:,.2f} M"
+    else:
+        text = f"{size:,.2f}"
+    # a value that rounds to zero carries no sign
+    sign = "-" if value < 0 and any(c in "123456789" for c in text) else ""
+    return f"{sign}{text}{suffix}"
 
 
 def percent(value: float, digits: int = 2) -> str:
-    return f"{100 * value:.{digits}f}%"
+    text = f"{100 * abs(value):.{digits}f}"
+    sign = "-" if value < 0 and any(c in "123456789" for c in text) else ""
+    return f"{sign}{text}%"
 
 
 def design_breakdown(result: DesignResult) -> Group:

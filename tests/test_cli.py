@@ -228,3 +228,14 @@ def test_check_echoes_every_priced_choice_and_rule():
         "uncertain: process.leading.defect_density (lognormal)",
     ):
         assert words in text, words
+
+
+def test_numbers_read_one_way():
+    # One style for money and shares: thousands separated, M and bn, never "-0.00".
+    from optimizer.report import money, percent
+
+    assert money(-0.001, "USD") == "0.00 USD"
+    assert money(-1234.5) == "-1,234.50"
+    assert money(2.5e6, "USD") == "2.50 M USD"
+    assert money(-3.25e9) == "-3.250 bn"
+    assert percent(-1e-6) == "0.00%" and percent(-0.125) == "-12.50%"
