@@ -95,7 +95,7 @@ def run_sensitivity(
             study.source,
             "uncertain",
             "no input ranges to test; add [[uncertain]] entries to the file or give "
-            "--range PATH LOW HIGH",
+            "--range PATH=LOW:HIGH (e.g. --range market.unit_price=1500:2300)",
         )
     seen: dict[str, str] = {}
     for r in ranges:
