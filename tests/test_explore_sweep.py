@@ -154,3 +154,16 @@ def test_salvage_bins_make_every_point_solves():
     study = study_from_data(edited, "t")
     result = run_sweep(study, [make_axis("market.volume", 1e4, 1e6, 3, log=True)])
     assert result.strategy == "every point" and result.solves == 3
+
+
+def test_figure_axes_read_in_words_with_units():
+    # A swept input is named as a reader would say it, and crossings as numbers are
+    # written (212,346 rather than 2.12e+05).
+    from optimizer.explore.paths import parse_path
+    from optimizer.explore.plots import axis_label, plain_number
+
+    assert axis_label(parse_path("process.leading.defect_density")) == (
+        "defect density on leading [/cm^2]"
+    )
+    assert axis_label(parse_path("market.volume")) == "volume"
+    assert plain_number(212345.6) == "212,346" and plain_number(0.1234) == "0.1234"

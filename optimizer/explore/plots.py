@@ -26,6 +26,23 @@ from optimizer.explore.sensitivity import Sensitivity  # noqa: E402
 from optimizer.explore.sweep import SweepResult  # noqa: E402
 from optimizer.explore.uncertainty import Uncertainty  # noqa: E402
 
+
+def axis_label(path) -> str:
+    """An input path in words, with its unit: "defect density on leading [/cm^2]"."""
+    words = path.steps[-1].key.replace("_", " ")
+    owners = [step.item for step in path.steps[:-1] if step.item]
+    text = words + (f" on {' / '.join(owners)}" if owners else "")
+    return f"{text} [{path.unit_text}]" if path.unit_text else text
+
+
+def plain_number(value: float) -> str:
+    """A number as a reader writes it: 212,000 rather than 2.12e+05."""
+    size = abs(value)
+    if size >= 1e4 and size < 1e15:
+        return f"{value:,.0f}"
+    return f"{value:.4g}"
+
+
 CAUTION = "Estimates for comparing options early; invented demo data unless stated."
 
 COMPONENT_LABELS = {
@@ -139,7 +156,7 @@ def sweep_figure(sweep: SweepResult, currency: str = "") -> Figure:
         for a in (ax, behind):
             a.axvline(where, color="0.3", ls="--", lw=0.9)
         ax.annotate(
-            f"{where:.4g}",
+            plain_number(where),
             (where, 1.0),
             xycoords=("data", "axes fraction"),
             rotation=90,
@@ -157,7 +174,7 @@ def sweep_figure(sweep: SweepResult, currency: str = "") -> Figure:
     ax.legend(fontsize=8)
     _finite_limits(ax, sweep)
     behind.set_ylabel(f"behind the optimum{unit}")
-    behind.set_xlabel(axis.path.label)
+    behind.set_xlabel(axis_label(axis.path))
     finite = np.concatenate(gaps) if gaps else np.zeros(1)
     finite = finite[np.isfinite(finite) & (finite < 0)]
     if finite.size:
@@ -202,8 +219,8 @@ def winner_map_figure(sweep: SweepResult) -> Figure:
         ax.set_xscale("log")
     if ax_y.log:
         ax.set_yscale("log")
-    ax.set_xlabel(ax_x.path.label)
-    ax.set_ylabel(ax_y.path.label)
+    ax.set_xlabel(axis_label(ax_x.path))
+    ax.set_ylabel(axis_label(ax_y.path))
     ax.set_title("Winning design kind")
     handles = [Patch(color=colors(i % 10), label=k) for i, k in enumerate(kinds)]
     ax.legend(handles=handles, fontsize=8, loc="upper left", bbox_to_anchor=(1.0, 1.0))
