@@ -576,6 +576,27 @@ def _ranked_csv(solution) -> str:
     return pd.DataFrame(rows).to_csv(index=False)
 
 
+@app.command()
+def new(
+    path: Annotated[Path, typer.Argument(help="Where to write the file.", show_default=False)],
+) -> None:
+    """Write a commented starter problem file (invented numbers) for a new product."""
+    from optimizer.reference import STARTER
+
+    try:
+        with path.open("x", encoding="utf-8") as handle:  # "x": never overwrite
+            handle.write(STARTER)
+    except FileExistsError:
+        raise ProblemError(
+            str(path), "", "already exists; choose a new path or remove the file first"
+        ) from None
+    except OSError as exc:
+        raise ProblemError(
+            str(path), "", f"cannot write the file ({exc.strerror}); check the folder"
+        ) from None
+    say(f"wrote {path}; replace its invented numbers, then run dieplan check {path}")
+
+
 @app.command("profit-curve")
 def profit_curve_command(
     problem_path: ProblemPath,
