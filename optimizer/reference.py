@@ -54,8 +54,17 @@ MEANINGS: dict[tuple[str, str], str] = {
     ("market.salvage_bin", "demand"): "units the bin can sell",
     ("constraints", "min_die_area"): "smallest allowed die",
     ("constraints", "max_die_area"): "largest allowed die",
-    ("constraints", "max_dies"): "most dies in one package",
-    ("constraints", "keep_together"): "groups of block names that share one die",
+    (
+        "constraints",
+        "max_dies",
+    ): "most dies in one package; the smaller of this and the packaging's own max_dies applies",
+    (
+        "constraints",
+        "keep_together",
+    ): (
+        "groups of blocks kept in the same share: a die holding any of them holds the "
+        "same fraction of each block's count"
+    ),
     ("constraints", "keep_apart"): "groups of block names never on one die",
     ("process", "name"): "unique name of the process option",
     ("process", "wafer_diameter"): "wafer diameter",
@@ -95,7 +104,13 @@ MEANINGS: dict[tuple[str, str], str] = {
     ("process.margin", "area_overhead"): "block-area fraction each sigma costs (same length)",
     ("packaging", "name"): "unique name of the packaging option",
     ("packaging", "kind"): "how the dies are joined (single_die holds one die)",
-    ("packaging", "max_dies"): "most dies it holds (1 for single_die)",
+    (
+        "packaging",
+        "max_dies",
+    ): (
+        "most dies it holds (1 for single_die); the smaller of this and "
+        "constraints.max_dies applies"
+    ),
     ("packaging", "bond_cost_per_die"): "cost to bond one die",
     ("packaging", "bond_yield"): "yield of bonding one die",
     ("packaging", "carrier_cost"): "substrate cost (under the interposer, if any)",
@@ -114,16 +129,35 @@ MEANINGS: dict[tuple[str, str], str] = {
     ("packaging", "interposer_max_area"): "largest interposer",
     ("packaging", "interposer_defect_sensitivity"): "critical-area fraction of the interposer",
     ("design_cost", "per_die_design"): "one-time cost per distinct die design",
-    ("design_cost", "per_mm2"): "one-time cost per mm^2 of each distinct die design",
+    (
+        "design_cost",
+        "per_mm2",
+    ): (
+        "one-time design cost per mm^2 of die area, per distinct die design (paid once "
+        "however many copies or products use it)"
+    ),
     ("critical_area_reduction", "sensitivity_factor"): "defect-sensitivity multipliers on offer",
     ("critical_area_reduction", "area_overhead"): "area fraction each factor costs (same length)",
-    ("requirements", "min_die_yield"): "lowest die yield allowed (absent: none)",
+    (
+        "requirements",
+        "min_die_yield",
+    ): (
+        "lowest die yield allowed for every die (absent: none); die yield = systematic x "
+        "defect-limited yield (spares and repair counted) x soft yield of its sigma "
+        "margin"
+    ),
     ("requirements", "min_sigma_margin"): "lowest sigma margin allowed (absent: none)",
     ("requirements", "max_defect_level"): "highest share of bad parts shipped, below 1 "
     "(absent: none)",
     ("block", "name"): "unique name of the block",
     ("block", "kind"): "block kind; picks the process's area_scale",
-    ("block", "area"): "area of one instance at the reference process",
+    (
+        "block",
+        "area",
+    ): (
+        "area of one instance at area_scale 1 (the reference); each process scales it by "
+        "its area_scale of the block's kind"
+    ),
     ("block", "count"): "identical instances; they may spread over several dies",
     ("block", "defect_sensitivity"): "critical-area fraction",
     ("block", "spare_choices"): "spare instances a die may add (0 is always offered)",
@@ -133,7 +167,13 @@ MEANINGS: dict[tuple[str, str], str] = {
     ("block.repair", "area_per_repair"): "area of one repair element",
     ("block.repair", "test_cost_per_die"): "extra test cost per die using repair",
     ("link", "blocks"): "the two blocks joined",
-    ("link", "bandwidth"): "bandwidth between them, paid as interface area when split",
+    (
+        "link",
+        "bandwidth",
+    ): (
+        "one figure for the link (directions not told apart); a die that splits it pays "
+        "the bandwidth it cuts / interface_density of PHY area, plus port_area"
+    ),
     ("design", "name"): "unique name `evaluate --design` and reports use",
     ("design", "packaging"): "the packaging option all dies go on",
     ("design", "die"): "the dies of the design",
