@@ -569,7 +569,7 @@ def _ranked_csv(solution) -> str:
                 "package_yield": d.package_yield,
                 "nre": d.nre,
                 "profit": d.profit,
-                "margin": d.margin,
+                "profit_margin": d.profit_margin,
                 **{f"cost_{k}": v for k, v in d.breakdown.items()},
             }
         )

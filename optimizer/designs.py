@@ -98,7 +98,7 @@ class DesignResult:
     salvage_units: dict[str, float]
     salvage_revenue: float
     profit: float
-    margin: float
+    profit_margin: float  # profit / revenue (not the sigma margin of a die)
     breakeven_volume: float
     violations: list[str]
 
@@ -293,7 +293,7 @@ def evaluate_specs(
         },
         salvage_revenue=float(product.salvage_revenue[0]),
         profit=profit,
-        margin=profit / float(product.revenue[0]),
+        profit_margin=profit / float(product.revenue[0]),
         breakeven_volume=one_time / unit_margin if unit_margin > 0 else float("inf"),
         violations=[],
     )

@@ -145,7 +145,7 @@ def design_breakdown(result: DesignResult) -> Group:
     for row in rows:
         summary.add_row(*cells(*row))
     summary.add_row(Text("profit", style="bold"), Text(money(result.profit, cur), style="bold"))
-    summary.add_row(*cells("margin", percent(result.margin, 1)))
+    summary.add_row(*cells("profit margin", percent(result.profit_margin, 1)))
     breakeven = result.breakeven_volume
     summary.add_row(
         *cells(
@@ -170,7 +170,7 @@ def designs_overview(results: list[DesignResult]) -> Table:
         "package yield",
         "NRE",
         "profit",
-        "margin",
+        "profit margin",
         "rules",
     ):
         table.add_column(
@@ -191,7 +191,7 @@ def designs_overview(results: list[DesignResult]) -> Table:
                 percent(r.package_yield),
                 money(r.nre),
                 money(r.profit),
-                percent(r.margin, 1),
+                percent(r.profit_margin, 1),
                 rules,
             )
         )
@@ -454,7 +454,7 @@ def die_contents(result: DesignResult) -> Table:
         "copies",
         "process",
         "D target /cm^2",
-        "margin",
+        "design margin",
         "blocks",
         "spares / repair / options",
     ):

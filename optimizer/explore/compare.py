@@ -214,7 +214,7 @@ def compare(
             "manufacturing_cost_per_good_unit": r.manufacturing_cost_per_good_unit,
             "profit": r.profit,
             "profit_vs_best": r.profit - best.profit,
-            "margin": r.margin,
+            "profit_margin": r.profit_margin,
             "die_yields": "; ".join(
                 f"{d.name}@{d.process} {100 * d.die_yield:.2f}%" for d in r.dies
             ),
