@@ -111,7 +111,11 @@ def _csv_writer(frame: pd.DataFrame) -> Writer:
     return text_writer(frame.to_csv(index=False))
 
 
-def _figure_writers(stem: str, figure) -> dict[str, Writer]:
+def _figure_writers(stem: str, figure, title: str = "") -> dict[str, Writer]:
+    from optimizer.explore.plots import mark_invented
+
+    if "invented" in title.lower():
+        mark_invented(figure)
     return {
         f"{stem}.png": figure_writer(figure, dpi=130),
         f"{stem}.svg": figure_writer(figure),
@@ -230,7 +234,11 @@ def compare(
             "comparison.csv": _csv_writer(table),
             "comparison.json": json_writer(payload),
             "options.json": json_writer(payload["options"]),
-            **_figure_writers("cost_by_component", comparison_figure(result, currency)),
+            **_figure_writers(
+                "cost_by_component",
+                comparison_figure(result, currency),
+                " ".join(s.problem.title for s in studies),
+            ),
         }
         files.update(_problem_copies(problem_paths))
         folder = write_run_folder(results_dir, "compare", problem_paths[0].stem, files)
@@ -386,7 +394,7 @@ def sweep(
             "crossovers.csv": _csv_writer(result.crossovers),
             "designs.json": json_writer(payload["designs"]),
             "options.json": json_writer(options),
-            **_figure_writers(stem, sweep_figure(result, currency)),
+            **_figure_writers(stem, sweep_figure(result, currency), study.problem.title),
             "problem.toml": copy_writer(problem_path),
         }
         if result.curves is not None:
@@ -491,7 +499,7 @@ def sensitivity(
             "sensitivity.csv": _csv_writer(result.table),
             "winner.json": json_writer(result.winner.to_dict()),
             "options.json": json_writer(options),
-            **_figure_writers("tornado", tornado_figure(result, currency)),
+            **_figure_writers("tornado", tornado_figure(result, currency), study.problem.title),
             "problem.toml": copy_writer(problem_path),
         }
         folder = write_run_folder(results_dir, "sensitivity", problem_path.stem, files)
@@ -600,7 +608,9 @@ def uncertainty(
                 _design_rows({f"rank{k + 1}": d for k, d in enumerate(result.designs)})
             ),
             "options.json": json_writer(options),
-            **_figure_writers("profit_distribution", uncertainty_figure(result, currency)),
+            **_figure_writers(
+                "profit_distribution", uncertainty_figure(result, currency), study.problem.title
+            ),
             "problem.toml": copy_writer(problem_path),
         }
         folder = write_run_folder(results_dir, "uncertainty", problem_path.stem, files)

@@ -375,3 +375,18 @@ def test_names_with_markup_and_math_signs_print_and_draw_as_written(write_proble
     assert r"[bold]a$\frac$b" in out.stdout
     folder = _folder(results)
     assert (folder / "cost_by_component.svg").stat().st_size > 0
+
+
+def test_only_invented_problems_get_the_invented_data_note():
+    # The figure footer claims invented data only where the problem says so (the demos).
+    from matplotlib.figure import Figure
+
+    from optimizer.cli_explore import _figure_writers
+
+    def notes(title: str) -> list[str]:
+        fig = Figure()
+        _figure_writers("x", fig, title)
+        return [t.get_text() for t in fig.texts]
+
+    assert "demo data invented" in notes("Edge accelerator (invented demo)")
+    assert "demo data invented" not in notes("Our next product")

@@ -43,7 +43,7 @@ def plain_number(value: float) -> str:
     return f"{value:.4g}"
 
 
-CAUTION = "Estimates for comparing options early; invented demo data unless stated."
+CAUTION = "Estimates for comparing options early; real decisions need foundry and assembly data."
 
 COMPONENT_LABELS = {
     "silicon": "silicon",
@@ -83,6 +83,12 @@ def _money(value: float, _pos: object = None) -> str:
 def _figure(width: float = 8.0, height: float = 4.8) -> tuple[Figure, plt.Axes]:
     fig = Figure(figsize=(width, height), layout="constrained")
     return fig, fig.add_subplot()
+
+
+def mark_invented(fig: Figure) -> None:
+    """Say on the figure that its data are invented (the shipped demos say so in their
+    titles); a user's own figures carry no such claim."""
+    fig.text(0.99, 0.005, "demo data invented", fontsize=7, color="0.4", ha="right", va="bottom")
 
 
 def _footer(fig: Figure) -> None:
