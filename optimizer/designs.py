@@ -106,6 +106,32 @@ class DesignResult:
         return asdict(self)
 
 
+def design_text(result: DesignResult) -> str:
+    """The one text of a design used in every table, list and legend.
+
+    Process first, so that a cut column never hides it; every choice that tells two
+    designs apart is stated (defect target, margin, critical-area option), e.g.
+    ``"2x leading [compute_core x16, cache_slice x8; +1 spare compute_core] D=0.08/cm^2
+    margin 3 sigma + 1x legacy [io_hub] D=0.1/cm^2"``.
+    """
+    items = []
+    for die in result.dies:
+        inner = ", ".join(
+            f"{name} x{count}" if count > 1 else name for name, count in die.blocks.items()
+        )
+        extras = [f"+{v} spare {k}" for k, v in die.spares.items() if v]
+        extras += [f"{v} repairs {k}" for k, v in die.repair.items() if v]
+        if extras:
+            inner += "; " + ", ".join(extras)
+        text = f"{die.copies}x {die.process} [{inner}] D={die.defect_density_per_cm2:.4g}/cm^2"
+        if math.isfinite(die.sigma_margin):
+            text += f" margin {die.sigma_margin:g} sigma"
+        if die.critical_area_option:
+            text += f" critical-area option {die.critical_area_option}"
+        items.append(text)
+    return " + ".join(items)
+
+
 def specs_from_design(design: Design) -> list[DieSpec]:
     """Die specs of an explicit design, identical die designs merged (one NRE)."""
     merged: dict[tuple, DieSpec] = {}

@@ -14,7 +14,7 @@ from rich.console import Group
 from rich.table import Table
 from rich.text import Text
 
-from optimizer.designs import DesignResult
+from optimizer.designs import DesignResult, design_text
 from optimizer.problem import Problem
 
 CAUTION = (
@@ -429,22 +429,8 @@ def solution_view(solution) -> Group:
 
 
 def short_design(result: DesignResult) -> str:
-    """Compact text: copies x (blocks) @ process, for each die design."""
-    items = []
-    for die in result.dies:
-        blocks = "+".join(f"{n}{'x' + str(c) if c > 1 else ''}" for n, c in die.blocks.items())
-        extra = ""
-        if die.spares:
-            extra += " spares " + ",".join(f"{k}:{v}" for k, v in die.spares.items())
-        if die.repair:
-            extra += " repair " + ",".join(f"{k}:{v}" for k, v in die.repair.items())
-        extra += f" D={die.defect_density_per_cm2:.3g}"
-        if math.isfinite(die.sigma_margin):
-            extra += f" margin={die.sigma_margin:g}sigma"
-        if die.critical_area_option:
-            extra += f" critical-area option {die.critical_area_option}"
-        items.append(f"{die.copies}x[{blocks}]@{die.process}{extra}")
-    return "; ".join(items)
+    """The design's one text (see :func:`optimizer.designs.design_text`)."""
+    return design_text(result)
 
 
 def die_contents(result: DesignResult) -> Table:

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from optimizer.designs import DesignResult, DieSpec, die_batch, evaluate_specs
+from optimizer.designs import DesignResult, DieSpec, design_text, die_batch, evaluate_specs
 from optimizer.evaluator import Evaluator
 from optimizer.explore.paths import FieldPath, parse_path, problem_with
 from optimizer.problem import Market, Problem, ProblemError
@@ -41,15 +41,8 @@ def design_kind(result: DesignResult) -> str:
 
 
 def design_summary(result: DesignResult) -> str:
-    """Compact text of every die design: copies x [blocks, spares, repairs] @ process."""
-    items = []
-    for die in result.dies:
-        blocks = " + ".join(f"{name} x{count}" for name, count in die.blocks.items())
-        extras = [f"+{v} spare {k}" for k, v in die.spares.items() if v]
-        extras += [f"{v} repairs {k}" for k, v in die.repair.items() if v]
-        inner = ", ".join([blocks, *extras])
-        items.append(f"{die.copies}x [{inner}] @ {die.process}")
-    return "; ".join(items)
+    """The design's one text (see :func:`optimizer.designs.design_text`)."""
+    return design_text(result)
 
 
 @dataclass(frozen=True)
