@@ -167,3 +167,18 @@ def test_figure_axes_read_in_words_with_units():
     )
     assert axis_label(parse_path("market.volume")) == "volume"
     assert plain_number(212345.6) == "212,346" and plain_number(0.1234) == "0.1234"
+
+
+def test_winner_map_cells_stay_inside_the_swept_range():
+    # A linear sweep of a density from 0.01 to 1 in 5 steps: half a cell beyond the first
+    # point would reach -0.11 /cm^2, a value nobody swept.
+    import numpy as np
+
+    from optimizer.explore.plots import _edges
+
+    grid = np.linspace(0.01, 1.0, 5)
+    edges = _edges(grid, log=False)
+    assert edges[0] == grid[0] and edges[-1] == grid[-1]
+    assert np.all(np.diff(edges) > 0)
+    logged = _edges(np.geomspace(0.01, 1.0, 5), log=True)
+    assert np.isclose(logged[0], 0.01) and np.isclose(logged[-1], 1.0)

@@ -235,14 +235,18 @@ def winner_map_figure(sweep: SweepResult) -> Figure:
 
 
 def _edges(centres: np.ndarray, log: bool) -> np.ndarray:
-    """Cell edges halfway between grid values (geometrically on a log axis)."""
+    """Cell edges halfway between grid values (geometrically on a log axis); the outer
+    edges are the grid's own ends, so the map never shows values outside the sweep (a
+    negative defect density, say)."""
     c = np.log(centres) if log else centres.astype(float)
     if len(c) == 1:
-        edges = np.array([c[0] - 0.5, c[0] + 0.5])
+        edges = np.array([c[0] - 0.5, c[0] + 0.5]) if log else c[0] * np.array([0.9, 1.1])
+        if not log and c[0] == 0:
+            edges = np.array([0.0, 1.0])
     else:
         mid = (c[1:] + c[:-1]) / 2
-        edges = np.concatenate([[c[0] - (mid[0] - c[0])], mid, [c[-1] + (c[-1] - mid[-1])]])
-    return np.exp(edges) if log else edges
+        edges = np.concatenate([[c[0]], mid, [c[-1]]])
+    return np.exp(edges) if log else np.sort(edges)
 
 
 @literal_text
