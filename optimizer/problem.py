@@ -1228,10 +1228,7 @@ def _nesting_depth(data: object) -> int:
     return deepest
 
 
-def parse_problem(data: dict, source: str = "<problem>") -> Problem:
-    """Validate a decoded TOML document into a :class:`Problem` (raises ProblemError)."""
-    if not isinstance(data, dict):
-        raise ProblemError(source, "", "is not a table of sections; start from a demo file")
+def _check_nesting(data: dict, source: str) -> None:
     if _nesting_depth(data) > MAX_NESTING:
         raise ProblemError(
             source,
@@ -1239,6 +1236,13 @@ def parse_problem(data: dict, source: str = "<problem>") -> Problem:
             f"tables and lists are nested more than {MAX_NESTING} deep; a problem file needs "
             "far fewer, so remove the extra levels",
         )
+
+
+def parse_problem(data: dict, source: str = "<problem>") -> Problem:
+    """Validate a decoded TOML document into a :class:`Problem` (raises ProblemError)."""
+    if not isinstance(data, dict):
+        raise ProblemError(source, "", "is not a table of sections; start from a demo file")
+    _check_nesting(data, source)
     try:
         problem = Problem.model_validate(data)
     except ValidationError as exc:
@@ -1307,13 +1311,7 @@ def read_problem_data(path: str | Path) -> tuple[dict, str]:
         raise ProblemError(
             source, "", f"not valid TOML ({_clip(str(exc), 80)}); fix the value there"
         ) from None
-    if _nesting_depth(data) > MAX_NESTING:
-        raise ProblemError(
-            source,
-            "",
-            f"tables and lists are nested more than {MAX_NESTING} deep; a problem file needs "
-            "far fewer, so remove the extra levels",
-        )
+    _check_nesting(data, source)
     return data, source
 
 

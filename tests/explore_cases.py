@@ -5,6 +5,22 @@ from __future__ import annotations
 import math
 import tomllib
 
+# Two uncertain inputs of the tiny test problem (tests/conftest.py).
+UNCERTAIN = """
+[[uncertain]]
+path = "process.cheap.defect_density"
+distribution = "lognormal"
+median = "0.08 /cm^2"
+sigma_log = 0.3
+
+[[uncertain]]
+path = "market.volume"
+distribution = "triangular"
+low = 6e4
+mode = 1e5
+high = 2e5
+"""
+
 # Two processes, one block, one packaging: exactly two candidate designs. "old" has the
 # lower one-time cost and the higher unit cost, so the winner changes with volume.
 BREAK_EVEN = """

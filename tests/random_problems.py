@@ -20,17 +20,10 @@ import math
 
 import numpy as np
 
-from optimizer.solver.exhaustive import multiset_partitions
+from optimizer.problem import YIELD_MODEL_NAMES
+from optimizer.solver.partitions import multiset_partitions
 
 PACKAGING_KINDS = ("single_die", "organic_substrate", "silicon_interposer", "stacked")
-YIELD_MODELS = (
-    "poisson",
-    "murphy",
-    "exponential",
-    "sqrt_exponential",
-    "negative_binomial",
-    "bose_einstein",
-)
 BLOCK_KINDS = ("logic", "memory", "analog", "io")
 
 # Probability of each optional feature; a knob of 1.0 forces it, 0.0 rules it out.
@@ -302,7 +295,7 @@ def random_problem(
 
 
 def _random_process(rng, name: str, k: int, p: dict, flag, nre_scale: float) -> dict:
-    model = str(rng.choice(YIELD_MODELS))
+    model = str(rng.choice(YIELD_MODEL_NAMES))
     density = float(rng.uniform(0.05, 0.8))
     proc: dict = {
         "name": name,

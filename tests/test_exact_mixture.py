@@ -28,17 +28,11 @@ from scipy.special import bdtr, bdtrc, pdtr, pdtrc
 from optimizer.evaluator import DieBatch, Evaluator
 from optimizer.formulas import defect_mixture
 from optimizer.formulas.defect_mixture import RedundantBlocks, log_redundant_yield
-from optimizer.problem import parse_problem
+from optimizer.problem import YIELD_MODEL_NAMES, parse_problem
 
-MODELS = (
-    "poisson",
-    "murphy",
-    "exponential",
-    "sqrt_exponential",
-    "negative_binomial",
-    "bose_einstein",
-)
-MIXED = MODELS[1:]  # every model but Poisson has a density of D to integrate over
+MODELS = YIELD_MODEL_NAMES
+# every model but Poisson has a density of D to integrate over
+MIXED = tuple(m for m in MODELS if m != "poisson")
 # mean defects per unit, a D0, from far below to far above one
 UNIT_DEFECTS = [1e-6, 1e-5, 1e-4, 1e-3, 1e-2, 0.1, 1.0, 10.0]
 D0 = 0.37  # defect density [1/cm^2] (per layer for Bose-Einstein)

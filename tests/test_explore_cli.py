@@ -15,24 +15,9 @@ from typer.testing import CliRunner
 
 from optimizer.cli import app
 from tests.conftest import TINY_PROBLEM
-from tests.explore_cases import BREAK_EVEN
+from tests.explore_cases import BREAK_EVEN, UNCERTAIN
 
 runner = CliRunner()
-
-UNCERTAIN = """
-[[uncertain]]
-path = "process.cheap.defect_density"
-distribution = "lognormal"
-median = "0.08 /cm^2"
-sigma_log = 0.3
-
-[[uncertain]]
-path = "market.volume"
-distribution = "triangular"
-low = 6e4
-mode = 1e5
-high = 2e5
-"""
 
 
 def _folder(results: Path) -> Path:

@@ -35,23 +35,9 @@ from optimizer.outputs import (
 )
 from optimizer.problem import ProblemError
 from tests.conftest import TINY_PROBLEM
+from tests.explore_cases import UNCERTAIN
 
 runner = CliRunner()
-
-UNCERTAIN = """
-[[uncertain]]
-path = "process.cheap.defect_density"
-distribution = "lognormal"
-median = "0.08 /cm^2"
-sigma_log = 0.3
-
-[[uncertain]]
-path = "market.volume"
-distribution = "triangular"
-low = 6e4
-mode = 1e5
-high = 2e5
-"""
 
 
 def strict_loads(text: str) -> object:

@@ -297,6 +297,18 @@ def _closed_form(
     return log_bose_einstein_yield(ad, critical_layers)
 
 
+def _check_model(model: str, clustering_alpha, critical_layers) -> None:
+    """A known yield model with the parameters it needs (ValueError otherwise)."""
+    if model not in YIELD_MODELS:
+        raise ValueError(
+            f"unknown yield model {model!r}; use one of {', '.join(sorted(YIELD_MODELS))}"
+        )
+    given = {"clustering_alpha": clustering_alpha, "critical_layers": critical_layers}
+    for name in YIELD_MODELS[model].parameters:
+        if given[name] is None:
+            raise ValueError(f"yield model {model!r} needs {name}")
+
+
 def log_mixed_yield(
     model: str,
     defect_density_per_cm2: ArrayLike,
@@ -374,14 +386,7 @@ def log_mixed_yield(
     .. [3] J. R. Michael, W. R. Schucany and R. W. Haas, "Generating random variates
        using transformations with multiple roots", Amer. Statist. 30(2), 1976.
     """
-    if model not in YIELD_MODELS:
-        raise ValueError(
-            f"unknown yield model {model!r}; use one of {', '.join(sorted(YIELD_MODELS))}"
-        )
-    given = {"clustering_alpha": clustering_alpha, "critical_layers": critical_layers}
-    for name in YIELD_MODELS[model].parameters:
-        if given[name] is None:
-            raise ValueError(f"yield model {model!r} needs {name}")
+    _check_model(model, clustering_alpha, critical_layers)
     density = np.asarray(defect_density_per_cm2, dtype=float)
     area = np.asarray(plain_critical_area_cm2, dtype=float)
     alpha = None if clustering_alpha is None else np.asarray(clustering_alpha, dtype=float)
@@ -939,14 +944,7 @@ def log_redundant_yield(
     .. [3] NIST Digital Library of Mathematical Functions, 10.29.1 and 10.49.12
        (recurrence and closed form of K_(n+1/2)).
     """
-    if model not in YIELD_MODELS:
-        raise ValueError(
-            f"unknown yield model {model!r}; use one of {', '.join(sorted(YIELD_MODELS))}"
-        )
-    given = {"clustering_alpha": clustering_alpha, "critical_layers": critical_layers}
-    for name in YIELD_MODELS[model].parameters:
-        if given[name] is None:
-            raise ValueError(f"yield model {model!r} needs {name}")
+    _check_model(model, clustering_alpha, critical_layers)
     density = np.atleast_1d(np.asarray(defect_density_per_cm2, dtype=float))
     plain = np.atleast_1d(np.asarray(plain_critical_area_cm2, dtype=float))
     columns = [np.atleast_2d(np.asarray(x)) for x in blocks]
