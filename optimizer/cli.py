@@ -14,6 +14,7 @@ installed ``dieplan`` script (``optimizer.cli:app``) and tests through
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import os
 import signal
@@ -453,10 +454,28 @@ def solve(
             help="Mandate a maximum defect level (e.g. 1e-4).",
         ),
     ] = None,
+    table_time: Annotated[
+        float,
+        typer.Option(
+            "--table-time",
+            min=0.0,
+            callback=finite,
+            help="Seconds for the best design of each architecture (0: no table).",
+        ),
+    ] = 10.0,
+    by_architecture: Annotated[
+        bool,
+        typer.Option(
+            "--by-architecture",
+            help="Rank the best design of each of the --top best architectures instead.",
+        ),
+    ] = False,
 ) -> None:
     """Find the most profitable design: partition, process per die, packaging, redundancy.
 
-    With mandated targets (--require-... or [requirements] in the file) it solves with and
+    Beside the optimum it gives the best design of every architecture (packaging and die
+    count) and where the choice would flip against the runner-up architecture. With
+    mandated targets (--require-... or [requirements] in the file) it solves with and
     without them and reports the profit the mandate costs.
     """
     # the time limit is wall-clock for the whole command from here, loading included
@@ -473,35 +492,59 @@ def solve(
     options = _requirement_options(require_die_yield, require_sigma, require_defect_level)
     problem = load_problem(problem_path)
     mandate = _requirements(problem, options)
+    table = dict(architectures=table_time > 0, table_time=table_time)
     if mandate is not None and mandate.any():
         priced = price_requirements(
-            problem, mandate, top=top, source=str(problem_path), method=method, deadline=deadline
+            problem,
+            mandate,
+            top=top,
+            source=str(problem_path),
+            method=method,
+            deadline=deadline,
+            **table,
         )
         solution, free = priced.mandated, priced.free
     else:
         solution = run_solver(
-            problem, top=top, method=method, deadline=deadline, source=str(problem_path)
+            problem, top=top, method=method, deadline=deadline, source=str(problem_path), **table
         )
         priced = free = None
+    if by_architecture:
+        if not solution.architectures:
+            raise ProblemError(
+                "--by-architecture", "", "needs the architecture table; set --table-time above 0"
+            )
+        solution = dataclasses.replace(solution, designs=solution.distinct_architectures(top))
+    flips = _flips(problem_path, problem, solution)
     payload = solution.to_dict()
+    if flips is not None:
+        payload["flips"] = {
+            "challengers": [
+                {"challenger": challenger.to_dict(), "inputs": [r.to_dict() for r in rows]}
+                for challenger, rows in flips
+            ],
+            "note": "each input moved alone with both designs held fixed; sweep re-solves",
+        }
     if priced is not None:
         payload["mandate"] = priced.to_dict()
         payload["unconstrained_best"] = free.best.to_dict()
     folder = None
     if write:
-        folder = write_run_folder(
-            results_dir,
-            "solve",
-            problem_path.stem,
-            {
-                "solution.json": text_writer(json_text(payload) + "\n"),
-                "ranked.csv": text_writer(_ranked_csv(solution)),
-                "solver.log": text_writer("\n".join(solution.log) + "\n"),
-                "problem.toml": copy_writer(problem_path),
-                # the ranked designs as [[design]] tables `evaluate` re-prices exactly
-                "designs.toml": text_writer(designs_toml(solution.designs, problem=problem)),
-            },
-        )
+        files = {
+            "solution.json": text_writer(json_text(payload) + "\n"),
+            "ranked.csv": text_writer(_ranked_csv(solution)),
+            "solver.log": text_writer("\n".join(solution.log) + "\n"),
+            "problem.toml": copy_writer(problem_path),
+            # the ranked designs and each architecture's best as [[design]] tables that
+            # `evaluate` re-prices exactly
+            "designs.toml": text_writer(_designs_toml(solution, problem)),
+        }
+        if solution.architectures:
+            files["architectures.csv"] = text_writer(_architectures_csv(solution))
+            files.update(_decision_figure(solution, problem))
+        if flips is not None:
+            files["flips.csv"] = text_writer(_flips_csv(flips))
+        folder = write_run_folder(results_dir, "solve", problem_path.stem, files)
     if as_json:
         if folder is not None:
             payload["run_folder"] = str(folder)
@@ -509,6 +552,12 @@ def solve(
         return
     console = _console()
     console.print(report.solution_view(solution))
+    if solution.architectures:
+        console.print(
+            report.decision_view(solution.architectures, solution.best.currency, table_time)
+        )
+    for challenger, rows in flips or []:
+        console.print(report.flips_view(challenger, rows, solution.best.currency))
     if priced is not None:
         console.print(report.mandate_view(priced))
     if folder is not None:
@@ -551,6 +600,111 @@ def _requirements(problem, options: dict[str, float]):
 
     merged = Requirements(**{**problem.requirements.model_dump(), **options})
     return merged if merged.any() else None
+
+
+def _challengers(solution) -> list:
+    """The best design of the next architecture and, when its die count is the optimum's,
+    the best design with another die count: the choices an architect weighs."""
+    rows = [row for row in solution.architectures if row.design is not None and not row.optimum]
+    if not rows:
+        return []
+    picked = [rows[0].design]
+    if rows[0].n_dies == solution.best.n_dies:
+        other = next((r for r in rows if r.n_dies != solution.best.n_dies), None)
+        if other is not None:
+            picked.append(other.design)
+    return picked
+
+
+def _flips(problem_path: Path, problem, solution) -> list | None:
+    """Break-even of each main input between the optimum and each challenger."""
+    challengers = _challengers(solution)
+    if not challengers:
+        return None
+    from optimizer.explore.breakeven import break_even, main_inputs
+    from optimizer.explore.fixed import FixedDesign
+    from optimizer.explore.paths import load_study
+
+    study = load_study(problem_path)
+    optimum = FixedDesign.from_result(solution.best, problem)
+    out = []
+    for design in challengers:
+        challenger = FixedDesign.from_result(design, problem)
+        paths = main_inputs(problem, [optimum, challenger])
+        out.append((design, break_even(study.data, str(problem_path), optimum, challenger, paths)))
+    return out
+
+
+def _flips_csv(flips) -> str:
+    import pandas as pd
+
+    rows = [
+        {"challenger": report.short_design(design), **row.to_dict()}
+        for design, found in flips
+        for row in found
+    ]
+    return pd.DataFrame(rows).to_csv(index=False)
+
+
+def _designs_toml(solution, problem) -> str:
+    results = list(solution.designs)
+    names = [f"solved_rank{rank}" for rank in range(1, len(results) + 1)]
+    for row in solution.architectures:
+        if row.design is not None and not row.optimum:
+            results.append(row.design)
+            names.append(f"best_{row.packaging}_{row.n_dies}_dies")
+    return designs_toml(results, problem=problem, names=names)
+
+
+def _architectures_csv(solution) -> str:
+    import pandas as pd
+
+    rows = []
+    for row in solution.architectures:
+        d = row.design
+        rows.append(
+            {
+                "architecture": row.label,
+                "packaging": row.packaging,
+                "n_dies": row.n_dies,
+                "process_mix": row.process_mix,
+                "optimum": row.optimum,
+                "proven": row.proven,
+                "profit": d.profit if d else None,
+                "profit_bound": row.profit_bound,
+                "gap": row.gap if d else None,
+                "behind_optimum": solution.best.profit - d.profit if d else None,
+                "cost_per_good_unit": d.cost_per_good_unit if d else None,
+                "die_yields": report.die_yields(d) if d else "",
+                "package_yield": d.package_yield if d else None,
+                "nre": d.nre if d else None,
+                "salvage_revenue": d.salvage_revenue if d else None,
+                "design": report.short_design(d) if d else "",
+                "reason": row.reason,
+                **{f"gap_{k}": v for k, v in row.gap_components.items()},
+            }
+        )
+    return pd.DataFrame(rows).to_csv(index=False)
+
+
+def _decision_figure(solution, problem) -> dict:
+    from optimizer.cli_explore import _figure_writers
+    from optimizer.explore.plots import decision_figure
+
+    rows = [
+        {
+            "architecture": f"{row.label}: {row.process_mix}" if row.design else row.label,
+            "profit": row.profit if row.design is not None else None,
+            "bound": row.profit_bound,
+            "proven": row.proven,
+            "optimum": row.optimum,
+            "reason": row.reason,
+        }
+        for row in solution.architectures
+    ]
+    title = f"{problem.title}: best design of each architecture"
+    figure = decision_figure(rows, title, solution.best.currency)
+    return _figure_writers("architectures", figure, problem.title)
 
 
 def _ranked_csv(solution) -> str:

@@ -528,11 +528,16 @@ def design_toml(
 
 
 def designs_toml(
-    results: list[DesignResult], *, problem: Problem | None = None, prefix: str = "solved_rank"
+    results: list[DesignResult],
+    *,
+    problem: Problem | None = None,
+    prefix: str = "solved_rank",
+    names: list[str] | None = None,
 ) -> str:
-    """Ranked designs as one paste-ready TOML text, named ``<prefix>1``, ``<prefix>2``..."""
+    """Designs as one paste-ready TOML text, named ``names`` or ``<prefix>1``, ``<prefix>2``..."""
+    if names is None:
+        names = [f"{prefix}{rank}" for rank in range(1, len(results) + 1)]
     bodies = [
-        _design_body(problem, result, f"{prefix}{rank}")
-        for rank, result in enumerate(results, start=1)
+        _design_body(problem, result, name) for result, name in zip(results, names, strict=True)
     ]
     return TOML_HEADER + "\n" + "\n".join(bodies)

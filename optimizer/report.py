@@ -500,3 +500,127 @@ def mandate_view(priced) -> Group:
         f"({percent(priced.profit_lost / abs(priced.free.best.profit))} of the optimum)."
     )
     return Group(table, text)
+
+
+GAP_WORDS = {
+    "silicon": "silicon",
+    "interface": "interface",
+    "sort_test": "sort test",
+    "die_scrap": "sort scrap",
+    "carrier": "carrier",
+    "assembly": "assembly",
+    "final_test": "final test",
+    "package_scrap": "package scrap",
+    "nre_per_unit": "NRE",
+    "improvement_per_unit": "yield spend",
+    "salvage": "salvage revenue",
+}
+
+
+def gap_reasons(parts: dict[str, float], most: int = 3) -> str:
+    """The largest parts of a profit gap: "+" where the optimum gains, "-" where it loses."""
+    if not parts:
+        return ""
+    order = sorted(parts.items(), key=lambda item: -abs(item[1]))
+    scale = max(abs(v) for v in parts.values())
+    shown = [
+        f"{GAP_WORDS[name]} {'+' if value > 0 else '-'}{money(abs(value))}"
+        for name, value in order[:most]
+        if abs(value) > 1e-6 * max(scale, 1.0)
+    ]
+    return ", ".join(shown)
+
+
+def die_yields(result: DesignResult) -> str:
+    """Die yield of each die design, in the design's order."""
+    return " / ".join(percent(die.die_yield, 1) for die in result.dies)
+
+
+def plain(value: float) -> str:
+    """A number as a reader writes it: 3,000,000 rather than 3e+06."""
+    if math.isfinite(value) and 1e4 <= abs(value) < 1e15:
+        return f"{value:,.0f}"
+    return f"{value:.4g}"
+
+
+def decision_view(rows, currency: str, seconds: float | None = None) -> Group:
+    """The best design of every architecture, side by side, with what proves it."""
+    best = next((row for row in rows if row.optimum), None)
+    table = literal_table(
+        f"Best design of each architecture (packaging, die count; money in {currency})",
+        show_lines=True,
+    )
+    width = max((len(row.label) for row in rows), default=12)
+    table.add_column("architecture", justify="left", min_width=min(width, 40))
+    for col, justify in (
+        ("profit", "right"),
+        ("behind", "right"),
+        ("proof", "left"),
+        ("cost/good unit", "right"),
+        ("yields: dies | package", "right"),
+        ("NRE", "right"),
+        ("largest parts of the gap (+: optimum ahead)", "left"),
+    ):
+        table.add_column(col, justify=justify)
+    open_rows = 0
+    for row in rows:
+        if row.design is None:
+            proof = "no design" if row.proven else "open"
+            table.add_row(*cells(row.label, "", "", proof, "", "", "", row.reason))
+            continue
+        d = row.design
+        if row.proven:
+            proof = "optimum" if row.optimum else "proven"
+        else:
+            open_rows += 1
+            proof = f"gap {percent(row.gap, 2)}"
+        behind = "" if row.optimum or best is None else money(best.profit - row.profit)
+        table.add_row(
+            *cells(
+                f"{row.label}\n{row.process_mix}",
+                money(d.profit),
+                behind,
+                proof,
+                money(d.cost_per_good_unit),
+                f"{die_yields(d)} | {percent(d.package_yield, 1)}",
+                money(d.nre),
+                gap_reasons(row.gap_components, most=2),
+            )
+        )
+    parts: list = [table]
+    note = "Each row is the most profitable design with that packaging and die count"
+    if open_rows:
+        note += (
+            f"; {open_rows} row(s) not proven within the table's time"
+            + (f" ({seconds:g} s)" if seconds is not None else "")
+            + ": their gap is to the row's own proven bound; raise --table-time to close them"
+        )
+    parts.append(Text(note + ".", style="dim"))
+    return Group(*parts)
+
+
+def flips_view(challenger: DesignResult, rows, currency: str) -> Group:
+    """Where the choice flips between the optimum and one challenger, both held fixed."""
+    from optimizer.explore.breakeven import FLIP, break_even_text
+
+    table = literal_table(
+        f"Where the optimum and the challenger trade places (both designs held fixed)\n"
+        f"challenger: {challenger.packaging}, {challenger.n_dies} "
+        f"{'die' if challenger.n_dies == 1 else 'dies'} ({design_text(challenger)})"
+    )
+    table.add_column("input")
+    table.add_column("file value", justify="right")
+    table.add_column("the challenger would win")
+    flips = sorted(
+        rows, key=lambda r: (r.status != FLIP, abs(math.log(r.ratio)) if r.status == FLIP else 0)
+    )
+    for row in flips:
+        table.add_row(*cells(row.label, plain(row.file_value), break_even_text(row, currency)))
+    return Group(
+        table,
+        Text(
+            "Each input moved alone, the two designs kept as they are; `dieplan sweep` "
+            "re-solves the whole problem at every value.",
+            style="dim",
+        ),
+    )

@@ -52,18 +52,20 @@ def price_requirements(
     time_limit: float | None = None,
     method: str = "milp",
     deadline: float | None = None,
+    **options,
 ) -> RequirementReport:
     """Solve with and without the mandated targets (the file's own requirements dropped).
 
     ``time_limit`` (seconds from this call) or ``deadline`` (a `time.perf_counter`
-    instant) bounds both solves together: one wall-clock budget.
+    instant) bounds both solves together: one wall-clock budget. ``options`` go to the
+    mandated solve (the decision table, for example).
     """
     if time_limit is not None:
         limit = time.perf_counter() + time_limit
         deadline = limit if deadline is None else min(deadline, limit)
     common = dict(top=top, method=method, source=source, deadline=deadline)
     free = solve(problem, requirements=Requirements(), **common)
-    mandated = solve(problem, requirements=requirements, **common)
+    mandated = solve(problem, requirements=requirements, **common, **options)
     return RequirementReport(requirements, free, mandated)
 
 

@@ -174,15 +174,22 @@ def test_cli_solve_writes_designs_that_evaluate_reprices(tmp_path):
     payload = json.loads(out.stdout)
     folder = Path(payload["run_folder"])
     written = (folder / "designs.toml").read_text()
-    assert written.count("[[design]]") == len(payload["ranked"]) == 2
+    # the ranked designs, then the best of every other architecture
+    others = [r for r in payload["architectures"] if r["design"] and not r["optimum"]]
+    assert len(payload["ranked"]) == 2
+    assert written.count("[[design]]") == 2 + len(others)
     combined = tmp_path / "with_designs.toml"
     combined.write_text(path.read_text() + "\n" + written)
-    out = runner.invoke(app, ["evaluate", str(combined), "--design", "solved_rank1", "--json"])
-    assert out.exit_code == 0, out.output
-    priced = json.loads(out.stdout)["designs"][0]
-    assert priced["design"] == "solved_rank1"
-    assert close(priced["profit"], payload["best"]["profit"])
-    assert close(priced["cost_per_good_unit"], payload["best"]["cost_per_good_unit"])
+    expected = {"solved_rank1": payload["best"]} | {
+        f"best_{r['packaging']}_{r['n_dies']}_dies": r["design"] for r in others
+    }
+    for name, result in expected.items():
+        out = runner.invoke(app, ["evaluate", str(combined), "--design", name, "--json"])
+        assert out.exit_code == 0, out.output
+        priced = json.loads(out.stdout)["designs"][0]
+        assert priced["design"] == name
+        assert close(priced["profit"], result["profit"])
+        assert close(priced["cost_per_good_unit"], result["cost_per_good_unit"])
 
 
 def test_designs_toml_names_ranks_in_order():

@@ -348,6 +348,10 @@ def test_solve_command_writes_run_folder_and_json(tmp_path, write_problem, tiny_
         "solver.log",
         "problem.toml",
         "designs.toml",
+        "architectures.csv",
+        "architectures.png",
+        "architectures.svg",
+        "flips.csv",
     }
     assert payload["proven_optimal"] is True
     assert payload["best"]["profit"] == pytest.approx(

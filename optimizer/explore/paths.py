@@ -170,6 +170,8 @@ def _field(model: type[BaseModel], key: str, where: str) -> tuple[str, object]:
 
 
 def _kind_of(attribute: str) -> tuple[QuantityKind | None, str]:
+    if attribute.startswith("per_"):
+        return None, ""  # money per unit of something (per_mm2): a plain number
     for suffix, kind, text in _UNIT_SUFFIXES:
         if attribute.endswith(suffix):
             return kind, text

@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 from optimizer.designs import DesignResult, evaluate_specs
 from optimizer.evaluator import COST_COMPONENTS, Evaluator
 from optimizer.problem import Problem, ProblemError, Requirements
+from optimizer.solver.architectures import ArchitectureRow, decision_table
 from optimizer.solver.exhaustive import exhaustive_search
 from optimizer.solver.infeasibility import explain_infeasible, explain_requirements
 from optimizer.solver.refine import refine_targets
@@ -47,6 +48,8 @@ class Solution:
     proof: str = ""  # what the claim covers, in words
     tie_tolerance: float = 0.0  # money within which designs count as tied
     refined_gain: float = 0.0  # profit the continuous refinement added beyond the proof
+    # the best design of every architecture (packaging, die count), best first
+    architectures: list[ArchitectureRow] = field(default_factory=list)
 
     @property
     def best(self) -> DesignResult:
@@ -67,7 +70,12 @@ class Solution:
             "best": self.designs[0].to_dict(),
             "ranked": [d.to_dict() for d in self.designs],
             "difference_to_runner_up": self.difference,
+            "architectures": [row.to_dict() for row in self.architectures],
         }
+
+    def distinct_architectures(self, k: int) -> list[DesignResult]:
+        """The best design of each of the ``k`` most profitable architectures."""
+        return [row.design for row in self.architectures if row.design is not None][:k]
 
 
 def _has_continuous_targets(problem: Problem, specs) -> bool:
@@ -106,6 +114,8 @@ def solve(
     requirements: Requirements | None = None,
     refine: bool = True,
     deadline: float | None = None,
+    architectures: bool = False,
+    table_time: float | None = 10.0,
 ) -> Solution:
     """Find the most profitable design(s) over every admissible choice in the problem.
 
@@ -115,6 +125,10 @@ def solve(
     solves of problems that differ only in the market section share their priced
     candidate dies. Every design is checked against the problem's rules and mandates,
     and a proven answer against its bound, before it is returned.
+
+    With ``architectures`` the solution also holds the decision table: the best design
+    of every (packaging, die count), each proven within it or, past ``table_time``
+    seconds spent on the table (None: no limit) or the deadline, with its own bound.
     """
     if time_limit is not None:
         limit = time.perf_counter() + time_limit
@@ -187,6 +201,22 @@ def solve(
         tolerance=tolerance,
     )
     gap = relative_gap(outcome, evaluator)
+    rows: list[ArchitectureRow] = []
+    if architectures:
+        table_deadline = deadline
+        if table_time is not None:
+            own = time.perf_counter() + table_time
+            table_deadline = own if deadline is None else min(deadline, own)
+        rows = decision_table(
+            evaluator,
+            outcome,
+            designs[0],
+            outcome.proven,
+            max(bound, designs[0].profit),
+            need,
+            source,
+            deadline=table_deadline,
+        )
     return Solution(
         designs=designs,
         method=outcome.method,
@@ -201,6 +231,7 @@ def solve(
         proof=proof_statement(problem, outcome, tolerance, refined_gain),
         tie_tolerance=tolerance,
         refined_gain=refined_gain,
+        architectures=rows,
     )
 
 

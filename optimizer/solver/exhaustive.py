@@ -90,6 +90,9 @@ def exhaustive_search(
         seconds=time.perf_counter() - start,
         log=log,
         stats={"designs_priced": designs, "candidate_dies": sum(map(len, candidates.values()))},
+        # every batch holds one packaging and die count, and keeps its best: so these hold
+        # the best design of every architecture
+        priced={sel: cost for cost, sel in best},
     )
 
 

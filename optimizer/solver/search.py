@@ -48,6 +48,10 @@ ENUMERATE_AFTER = 6
 ENUMERATE_BUDGET = 200_000
 # before its first integer program, a program is priced whole if it has this few designs
 ENUMERATE_FIRST = 20_000
+# relative gap at which a scouting integer program (incumbents only, no bound) stops
+SCOUT_GAP = 1e-3
+# a scouting program left with no design has this many times more columns next time
+SCOUT_WIDEN = 4
 
 
 def tie_tolerance(revenue: float, threshold_cost: float) -> float:
@@ -76,6 +80,8 @@ class SearchOutcome:
     seconds: float
     log: list[str] = field(default_factory=list)
     stats: dict = field(default_factory=dict)
+    # every design priced exactly on the way: selection -> total cost (inf if invalid)
+    priced: dict[Selection, float] = field(default_factory=dict)
 
 
 def _kth(values: list[float], k: int) -> float:
@@ -89,6 +95,9 @@ def milp_search(
     screen_columns: int = 200,
     candidate_cache: dict | None = None,
     requirements: Requirements | None = None,
+    architecture: tuple[int, int] | None = None,
+    candidates: dict[int, CandidateSet] | None = None,
+    seed: dict[Selection, float] | None = None,
 ) -> SearchOutcome:
     """Proven top-``top`` designs by integer programming with exact verification.
 
@@ -99,6 +108,12 @@ def milp_search(
 
     ``deadline`` is a `time.perf_counter` instant for the whole search, pricing of the
     candidate dies included.
+
+    With ``architecture`` = (packaging index, die count) only designs of that packaging
+    and die count are searched: the best of one architecture, proven within it.
+    ``candidates`` (from an earlier search of the same problem) skips the pricing of
+    candidate dies, and ``seed`` (designs priced earlier, selection -> total cost) gives
+    the search its first incumbents.
     """
     start = time.perf_counter()
     problem = evaluator.problem
@@ -116,14 +131,22 @@ def milp_search(
         tuple((b.block, b.min_good) for b in market.salvage_bin),
     )
     cached = candidate_cache.get(key) if candidate_cache is not None else None
+    if candidates is not None:
+        cached = candidates
     contents = enumerate_contents(evaluator) if cached is None else None
-    candidates: dict[int, CandidateSet] = {}
+    candidates = {}
     # one-die packagings first: their few candidates give a design to report even when
     # the time limit ends the pricing of the others
     order = sorted(
         range(len(problem.packaging)),
         key=lambda g: (problem.packaging[g].kind != "single_die", g),
     )
+    if architecture is not None:
+        order = [architecture[0]]
+
+    def in_scope(sel: Selection) -> bool:
+        return architecture is None or (sel.packaging_index, sel.n_dies) == architecture
+
     pricing_cut = False
     try:
         for g in order:
@@ -136,7 +159,8 @@ def milp_search(
                 )
             )
             candidates[g] = cset
-            log.append(f"packaging {packaging.name}: {len(cset)} candidate dies after pruning")
+            if cached is None:
+                log.append(f"packaging {packaging.name}: {len(cset)} candidate dies after pruning")
     except OutOfTime:
         pricing_cut = True
         missing = [problem.packaging[g].name for g in order if g not in candidates]
@@ -144,7 +168,9 @@ def milp_search(
     if candidate_cache is not None and not pricing_cut:
         candidate_cache[key] = candidates
 
-    exact: dict[Selection, float] = {}
+    exact: dict[Selection, float] = {
+        sel: total for sel, total in (seed or {}).items() if in_scope(sel)
+    }
 
     def price(sub: SubProblem) -> None:
         sel = sub.current
@@ -192,7 +218,8 @@ def milp_search(
             return None
         designs, count = found
         for total, sel in designs:
-            exact.setdefault(sel, total)
+            if in_scope(sel):
+                exact.setdefault(sel, total)
         return count
 
     def budget() -> float | None:
@@ -208,6 +235,8 @@ def milp_search(
 
     # one-die designs need no program: price them all at once for a first threshold
     for g, cset in candidates.items():
+        if architecture is not None and architecture != (g, 1):
+            continue
         whole = np.flatnonzero(np.all(cset.instances == evaluator.blocks.count[None, :], axis=1))
         if whole.size:
             sels = [Selection.of(g, [(int(c), 1)]) for c in whole]
@@ -225,11 +254,14 @@ def milp_search(
     # columns, so the joint program's duals bound it without a solve (`dual_bound`).
     for g, packaging in enumerate(problem.packaging):
         n_max = min(packaging.max_dies, problem.constraints.max_dies)
-        if pricing_cut or n_max < 2 or len(candidates[g]) == 0:
+        if pricing_cut or n_max < 2 or g not in candidates or len(candidates[g]) == 0:
             continue
-        n_programs += n_max - 1
+        counts = range(2, n_max + 1)
+        if architecture is not None:
+            counts = [n for n in counts if (g, n) == architecture]
+        n_programs += len(counts)
         joint_bound = joint = None
-        if n_max > 2:
+        if n_max > 2 and architecture is None:
             joint = build_columns(evaluator, candidates[g], 2, n_max)
             if joint is None or not open_bound(joint.quick_bound()):
                 continue
@@ -239,8 +271,9 @@ def milp_search(
                 if not joint_bound.feasible or not open_bound(joint_bound.value):
                     log.append(f"packaging {packaging.name}: 2 to {n_max} dies closed together")
                     continue
-        for n in range(2, n_max + 1):
-            columns = build_columns(evaluator, candidates[g], n, span=n_max, like=joint)
+        for n in counts:
+            span = n_max if architecture is None else n
+            columns = build_columns(evaluator, candidates[g], n, span=span, like=joint)
             if columns is None:
                 continue
             cheap = columns.quick_bound()
@@ -282,18 +315,29 @@ def milp_search(
             continue
         # unless the screen already leaves a small program, a small program over the
         # least-reduced-cost columns tightens the threshold first, so that the screen
-        # drops as many columns as possible
+        # drops as many columns as possible; widened while it holds no design at all
         order = np.argsort(np.where(usable, bound.reduced_cost, np.inf), kind="stable")
-        few = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
-        few = few[usable[few]]
-        if _screen(bound, usable, threshold()).size > screen_columns and few.size < usable.sum():
+        basic = np.flatnonzero(~bound.at_zero)
+        width = screen_columns
+        while _screen(bound, usable, threshold()).size > screen_columns:
+            few = np.union1d(order[:width], basic)
+            few = few[usable[few]]
+            if few.size >= usable.sum():
+                break
             scout = build_subproblem(columns, few)
+            # the scout is for incumbents only: its bound is not used, so a loose gap
+            scout.solver.config.rel_gap = SCOUT_GAP
             for _ in range(top):
                 solve_round(scout, budget())
                 price(scout)
                 if scout.current is None or out_of_time():
                     break
                 cut_current(scout)
+            if scout.rounds > 1 or scout.current is not None or out_of_time():
+                break
+            if not scout.exhausted:
+                break  # not for want of columns: stopped by its time limit
+            width *= SCOUT_WIDEN
         sub = build_subproblem(columns, _screen(bound, usable, threshold()))
         sub.bound = value
         sub.log.append(f"relaxation {value:.8g}; {sub.keep.size} of {columns.n_cols} columns kept")
@@ -378,6 +422,7 @@ def milp_search(
         seconds=time.perf_counter() - start,
         log=log,
         stats=stats,
+        priced=exact,
     )
 
 

@@ -1,0 +1,314 @@
+"""The decision table: the best design of every architecture, each proven within it.
+
+An architecture is a packaging option and a die count ("organic substrate, 3 dies").
+After the overall search, each architecture's own program is searched again with its own
+threshold (the best design of that architecture found so far), seeded with every design
+the overall search priced and reusing its candidate dies. A row is proven when its
+program closes; under a time budget it carries its own bound and gap instead.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import asdict, dataclass, field
+
+from optimizer.designs import DesignResult, evaluate_specs
+from optimizer.evaluator import COST_COMPONENTS, Evaluator
+from optimizer.invariants import InvariantViolation
+from optimizer.problem import Requirements
+from optimizer.solver.search import (
+    RankedSelection,
+    SearchOutcome,
+    milp_search,
+    tie_tolerance,
+)
+from optimizer.solver.selection import selection_specs
+from optimizer.solver.verify import verify_solution
+
+# The part of the gap each money component explains, in words for tables and figures.
+GAP_LABELS = {
+    "silicon": "silicon",
+    "interface": "die-to-die interface",
+    "sort_test": "sort and repair test",
+    "die_scrap": "dies failed at sort",
+    "carrier": "substrate / interposer",
+    "assembly": "assembly",
+    "final_test": "final test",
+    "package_scrap": "failed packages",
+    "nre_per_unit": "NRE",
+    "improvement_per_unit": "yield improvement",
+    "salvage": "salvage revenue",
+}
+
+
+@dataclass(frozen=True)
+class ArchitectureRow:
+    """The best design of one (packaging, die count), or why there is none."""
+
+    packaging: str
+    n_dies: int
+    design: DesignResult | None
+    proven: bool  # best within its architecture (to the tie tolerance)
+    profit_bound: float  # no design of this architecture earns more
+    gap: float  # relative, between the row's design and its bound
+    optimum: bool = False  # the row holding the overall optimum
+    reason: str = ""  # why no design fills the row
+    # money by which the optimum beats this row, per component (sum = profit gap)
+    gap_components: dict[str, float] = field(default_factory=dict)
+
+    @property
+    def label(self) -> str:
+        dies = "1 die" if self.n_dies == 1 else f"{self.n_dies} dies"
+        return f"{self.packaging}, {dies}"
+
+    @property
+    def process_mix(self) -> str:
+        """The processes of the row's dies, e.g. "2x leading + 1x legacy"."""
+        if self.design is None:
+            return ""
+        counts: dict[str, int] = {}
+        for die in self.design.dies:
+            counts[die.process] = counts.get(die.process, 0) + die.copies
+        return " + ".join(f"{k}x {name}" for name, k in counts.items())
+
+    @property
+    def profit(self) -> float:
+        return self.design.profit if self.design is not None else math.nan
+
+    def to_dict(self) -> dict:
+        data = asdict(self)
+        data.update(
+            architecture=self.label,
+            process_mix=self.process_mix,
+            profit=self.profit if self.design is not None else None,
+        )
+        return data
+
+
+def architectures(evaluator: Evaluator) -> list[tuple[int, int]]:
+    """Every (packaging index, die count) the problem allows, in file order."""
+    problem = evaluator.problem
+    pairs = []
+    for g, packaging in enumerate(problem.packaging):
+        n_max = min(packaging.max_dies, problem.constraints.max_dies)
+        pairs.extend((g, n) for n in range(1, n_max + 1))
+    return pairs
+
+
+def gap_components(optimum: DesignResult, other: DesignResult) -> dict[str, float]:
+    """Money by which ``optimum`` beats ``other``, per cost component and salvage.
+
+    Profit is revenue + salvage revenue - volume x (sum of the per-unit components), so
+    the components add up to the profit gap.
+    """
+    volume = optimum.volume
+    parts = {
+        name: volume * (other.breakdown[name] - optimum.breakdown[name])
+        for name in COST_COMPONENTS
+    }
+    parts["salvage"] = optimum.salvage_revenue - other.salvage_revenue
+    return parts
+
+
+def empty_reason(evaluator: Evaluator, g: int, n: int, need: Requirements) -> str:
+    """Why no admissible design has ``n`` dies on packaging ``g``, in the user's terms."""
+    problem = evaluator.problem
+    blocks = evaluator.blocks
+    limits = problem.constraints
+    packaging = problem.packaging[g]
+    instances = int(blocks.count.sum())
+    if n > instances:
+        return f"only {instances} block instances to place, fewer than {n} dies"
+    unit_min = (blocks.area_mm2 * blocks.scale).min(axis=0)
+    total_min = float(blocks.count @ unit_min)
+    field_mm2 = max(p.reticle_width_mm * p.reticle_height_mm for p in problem.process)
+    largest = min(limits.max_die_area_mm2, field_mm2)
+    if total_min > n * largest + 1e-9:
+        where = "reticle field" if field_mm2 <= limits.max_die_area_mm2 else "max_die_area"
+        return (
+            f"the blocks need at least {total_min:,.0f} mm^2 of silicon, more than {n} "
+            f"{'die' if n == 1 else 'dies'} of at most {largest:,.0f} mm^2 hold ({where})"
+        )
+    if packaging.kind == "silicon_interposer":
+        need_area = packaging.interposer_area_factor * total_min
+        need_area += packaging.interposer_extra_area_mm2
+        if need_area > packaging.interposer_max_area_mm2:
+            return (
+                f"an interposer for these dies needs at least {need_area:,.0f} mm^2, over its "
+                f"limit of {packaging.interposer_max_area_mm2:,.0f} mm^2"
+            )
+    total_max = float(blocks.count @ (blocks.area_mm2 * blocks.scale).max(axis=0))
+    if n * limits.min_die_area_mm2 > total_max * 1.3 + 1e-9:
+        return (
+            f"{n} dies of at least {limits.min_die_area_mm2:g} mm^2 (min_die_area) are more "
+            f"silicon than the blocks fill"
+        )
+    if limits.keep_together or limits.keep_apart:
+        rules = "keep_together / keep_apart rules"
+    else:
+        rules = "die-area range"
+    text = f"no split into {n} dies keeps the {rules} within the die-area limits"
+    if need.any():
+        text = (
+            f"no design of {n} dies keeps the {rules}, the die-area limits and the required "
+            "targets ([requirements]) together"
+        )
+    if packaging.kind == "silicon_interposer":
+        text += " and fits the interposer"
+    return text
+
+
+def decision_table(
+    evaluator: Evaluator,
+    outcome: SearchOutcome,
+    optimum: DesignResult,
+    optimum_proven: bool,
+    optimum_bound: float,
+    need: Requirements,
+    source: str,
+    deadline: float | None = None,
+) -> list[ArchitectureRow]:
+    """One row per architecture, best profit first, empty rows last.
+
+    ``optimum`` is the reported winner (its row is taken from the overall proof);
+    ``deadline`` (a `time.perf_counter` instant) bounds the extra searches: a row still
+    open then carries its bound and gap.
+    """
+    problem = evaluator.problem
+    revenue = problem.market.unit_price * problem.market.volume
+    best_key = (optimum.packaging, optimum.n_dies)
+    pairs = architectures(evaluator)
+    rows: list[ArchitectureRow] = []
+    seed = dict(outcome.priced)
+    for index, (g, n) in enumerate(pairs):
+        packaging = problem.packaging[g]
+        if (packaging.name, n) == best_key:
+            gap = max(0.0, (optimum_bound - optimum.profit) / max(abs(optimum.profit), 1e-12))
+            rows.append(
+                ArchitectureRow(
+                    packaging.name,
+                    n,
+                    optimum,
+                    optimum_proven,
+                    optimum_bound,
+                    0.0 if optimum_proven else gap,
+                    optimum=True,
+                )
+            )
+            continue
+        if g not in outcome.candidates:
+            rows.append(
+                ArchitectureRow(
+                    packaging.name,
+                    n,
+                    None,
+                    False,
+                    math.inf,
+                    math.inf,
+                    reason="not searched: the time limit ended while pricing its dies",
+                )
+            )
+            continue
+        if outcome.method == "exhaustive":
+            found = _from_exhaustive(outcome, g, n, revenue)
+        else:
+            # an even share of the time left for each row still to search
+            row_deadline = None
+            if deadline is not None:
+                left = max(deadline - time.perf_counter(), 0.0)
+                row_deadline = time.perf_counter() + left / (len(pairs) - index)
+            found = milp_search(
+                evaluator,
+                top=1,
+                deadline=row_deadline,
+                requirements=need,
+                architecture=(g, n),
+                candidates=outcome.candidates,
+                seed=seed,
+            )
+            seed.update(found.priced)
+        bound = revenue - found.bound_total_cost
+        if not found.ranked:
+            reason = "" if found.proven else "no design found within the time limit"
+            if found.proven:
+                reason = empty_reason(evaluator, g, n, need)
+            rows.append(
+                ArchitectureRow(
+                    packaging.name, n, None, found.proven, bound, math.inf, reason=reason
+                )
+            )
+            continue
+        item = found.ranked[0]
+        cset = outcome.candidates[g]
+        specs = selection_specs(evaluator, cset, item.selection)
+        design = evaluate_specs(
+            evaluator, specs, packaging.name, f"{packaging.name} x{n}", source, requirements=need
+        )
+        tolerance = tie_tolerance(revenue, item.total_cost)
+        verify_solution(
+            problem,
+            [design],
+            need,
+            proven=found.proven,
+            bound_profit=bound,
+            proven_profit=item.profit,
+            tolerance=tolerance,
+        )
+        gap = max(0.0, (bound - design.profit) / max(abs(design.profit), 1e-12))
+        rows.append(
+            ArchitectureRow(
+                packaging.name,
+                n,
+                design,
+                found.proven,
+                bound,
+                0.0 if found.proven else gap,
+                gap_components=gap_components(optimum, design),
+            )
+        )
+    _check_table(rows, optimum, optimum_proven, revenue)
+    filled = sorted((r for r in rows if r.design is not None), key=lambda r: -r.profit)
+    return filled + [r for r in rows if r.design is None]
+
+
+def _from_exhaustive(outcome: SearchOutcome, g: int, n: int, revenue: float) -> SearchOutcome:
+    """The row's best from the brute-force reference, which prices every design."""
+    mine = sorted(
+        (total, sel)
+        for sel, total in outcome.priced.items()
+        if (sel.packaging_index, sel.n_dies) == (g, n) and math.isfinite(total)
+    )
+    ranked = [RankedSelection(sel, total, revenue - total) for total, sel in mine[:1]]
+    bound = ranked[0].total_cost if ranked else math.inf
+    if not outcome.proven:
+        bound = -math.inf
+    return SearchOutcome(
+        ranked=ranked,
+        candidates=outcome.candidates,
+        bound_total_cost=bound,
+        proven=outcome.proven,
+        method="exhaustive",
+        seconds=0.0,
+    )
+
+
+def _check_table(
+    rows: list[ArchitectureRow], optimum: DesignResult, proven: bool, revenue: float
+) -> None:
+    """No row may beat a proven optimum, and each row's gap parts must add up."""
+    tolerance = tie_tolerance(revenue, revenue - optimum.profit)
+    for row in rows:
+        if row.design is None or row.optimum:
+            continue
+        if proven and row.design.profit > optimum.profit + tolerance:
+            raise InvariantViolation(
+                f"architecture '{row.label}' earns {row.design.profit:.10g}, more than the "
+                f"proven optimum {optimum.profit:.10g}"
+            )
+        total = sum(row.gap_components.values())
+        difference = optimum.profit - row.design.profit
+        if abs(total - difference) > 1e-6 * max(abs(optimum.profit), abs(difference), 1.0):
+            raise InvariantViolation(
+                f"the gap parts of '{row.label}' add up to {total:.10g}, not {difference:.10g}"
+            )
