@@ -104,8 +104,7 @@ def gap_components(optimum: DesignResult, other: DesignResult) -> dict[str, floa
     """
     volume = optimum.volume
     parts = {
-        name: volume * (other.breakdown[name] - optimum.breakdown[name])
-        for name in COST_COMPONENTS
+        name: volume * (other.breakdown[name] - optimum.breakdown[name]) for name in COST_COMPONENTS
     }
     parts["salvage"] = optimum.salvage_revenue - other.salvage_revenue
     return parts
