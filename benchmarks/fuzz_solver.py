@@ -81,7 +81,8 @@ def compare(
     out: dict = {"status": None, "revenue": revenue}
     t0 = time.perf_counter()
     try:
-        brute = solve(problem, top=top, method="exhaustive", refine=False)
+        brute = solve(problem, top=top, method="exhaustive", refine=False, architectures=True)
+        out["exhaustive_rows"] = _rows(brute)
         out["exhaustive"] = [d.profit for d in brute.designs]
         out["exhaustive_best"] = _describe(brute.best)
         out["designs_priced"] = brute.stats.get("designs_priced")
@@ -93,7 +94,16 @@ def compare(
         report(dict(out))
     t0 = time.perf_counter()
     try:
-        ours = solve(problem, top=top, method="milp", refine=False, time_limit=time_limit)
+        ours = solve(
+            problem,
+            top=top,
+            method="milp",
+            refine=False,
+            time_limit=time_limit,
+            architectures=True,
+            table_time=None,
+        )
+        out["milp_rows"] = _rows(ours)
         out["milp"] = [d.profit for d in ours.designs]
         out["milp_best"] = _describe(ours.best)
         out["proven"] = ours.proven_optimal
@@ -104,12 +114,28 @@ def compare(
         out["milp_error"] = exc.line()
     out["t_milp"] = time.perf_counter() - t0
     out["status"], out["shortfall"] = classify(out)
+    if out["status"] == "agree" and out.get("exhaustive_rows") != out.get("milp_rows"):
+        theirs, mine = out["exhaustive_rows"], out["milp_rows"]
+        if set(theirs) != set(mine) or any(
+            (a is None) != (b is None)
+            or (a is not None and (not b[1] or abs(a[0] - b[0]) > REL_TOL * _scale(a[0])))
+            for a, b in ((theirs[k], mine[k]) for k in theirs)
+        ):
+            out["status"] = "architecture_differs"
     if refine and out["status"] == "agree" and out["exhaustive"] is not None:
         refined = solve(problem, top=1, method="milp", refine=True, time_limit=time_limit)
         out["milp_refined"] = refined.best.profit
         if refined.best.profit < out["exhaustive"][0] - REL_TOL * _scale(out["exhaustive"][0]):
             out["status"] = "refine_lost"
     return out
+
+
+def _rows(solution) -> dict:
+    """Architecture -> (profit, proven) of its best design, or None when it has none."""
+    return {
+        f"{row.packaging}/{row.n_dies}": (row.profit, row.proven) if row.design else None
+        for row in solution.architectures
+    }
 
 
 def classify(out: dict) -> tuple[str, float]:
