@@ -462,7 +462,15 @@ def solve(
             callback=finite,
             help="Seconds for the best design of each architecture (0: no table).",
         ),
-    ] = 10.0,
+    ] = 20.0,
+    mixes: Annotated[
+        int,
+        typer.Option(
+            "--mixes",
+            min=0,
+            help="Split the optimum's and the best N multi-die architectures by process mix.",
+        ),
+    ] = 2,
     by_architecture: Annotated[
         bool,
         typer.Option(
@@ -492,7 +500,7 @@ def solve(
     options = _requirement_options(require_die_yield, require_sigma, require_defect_level)
     problem = load_problem(problem_path)
     mandate = _requirements(problem, options)
-    table = dict(architectures=table_time > 0, table_time=table_time)
+    table = dict(architectures=table_time > 0, table_time=table_time, split_mixes=mixes)
     if mandate is not None and mandate.any():
         priced = price_requirements(
             problem,
@@ -660,11 +668,16 @@ def _architectures_csv(solution) -> str:
     import pandas as pd
 
     rows = []
+    listed = []
     for row in solution.architectures:
+        listed.append(row)
+        listed.extend(row.mixes)
+    for row in listed:
         d = row.design
         rows.append(
             {
                 "architecture": row.label,
+                "held_to_mix": row.mix,
                 "packaging": row.packaging,
                 "n_dies": row.n_dies,
                 "process_mix": row.process_mix,

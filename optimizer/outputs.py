@@ -66,6 +66,18 @@ def json_writer(payload: object) -> Writer:
 
 
 # ---------------------------------------------------------------- figures
+def _freeze_layout(figure) -> None:
+    """Settle a layout engine's result once, with axes positions rounded: the engine's
+    last bits vary from run to run, and SVG clip ids hash them."""
+    if figure.get_layout_engine() is None:
+        return
+    figure.draw_without_rendering()
+    positions = [ax.get_position().bounds for ax in figure.axes]
+    figure.set_layout_engine("none")
+    for ax, bounds in zip(figure.axes, positions, strict=True):
+        ax.set_position([round(v, 5) for v in bounds])
+
+
 def figure_writer(figure, **options) -> Writer:
     """Write a matplotlib figure (format from the file suffix) byte-identically each run."""
 
@@ -83,6 +95,7 @@ def figure_writer(figure, **options) -> Writer:
         }.get(fmt, {})
         # tick labels are made while saving: keep them plain text as well
         with matplotlib.rc_context({"svg.hashsalt": "dieplan", "text.parse_math": False}):
+            _freeze_layout(figure)
             figure.savefig(path, format=fmt, metadata=metadata, **options)
 
     return write

@@ -563,21 +563,36 @@ def decision_view(rows, currency: str, seconds: float | None = None) -> Group:
     ):
         table.add_column(col, justify=justify)
     open_rows = 0
+    listed = []
+    skipped = 0
     for row in rows:
+        listed.append(row)
+        # its process-mix rows right under it (the one matching its best is the row
+        # itself); mixes the time did not reach are counted, not listed
+        for sub in row.mixes:
+            if sub.design is None and not sub.proven:
+                skipped += 1
+            elif sub.process_mix != row.process_mix:
+                listed.append(sub)
+    for row in listed:
+        if row.mix:
+            label = f"  same, held to {row.mix}"
+        else:
+            label = row.label
         if row.design is None:
             proof = "no design" if row.proven else "open"
-            table.add_row(*cells(row.label, "", "", proof, "", "", "", row.reason))
+            table.add_row(*cells(label, "", "", proof, "", "", "", row.reason))
             continue
         d = row.design
         if row.proven:
-            proof = "optimum" if row.optimum else "proven"
+            proof = "optimum" if row.optimum and not row.mix else "proven"
         else:
             open_rows += 1
             proof = f"gap {percent(row.gap, 2)}"
         behind = "" if row.optimum or best is None else money(best.profit - row.profit)
         table.add_row(
             *cells(
-                f"{row.label}\n{row.process_mix}",
+                label if row.mix else f"{row.label}\n{row.process_mix}",
                 money(d.profit),
                 behind,
                 proof,
@@ -588,13 +603,18 @@ def decision_view(rows, currency: str, seconds: float | None = None) -> Group:
             )
         )
     parts: list = [table]
-    note = "Each row is the most profitable design with that packaging and die count"
+    note = (
+        "Each row is the most profitable design with that packaging and die count; "
+        "'held to' rows, the most profitable with that many dies on each process"
+    )
     if open_rows:
         note += (
             f"; {open_rows} row(s) not proven within the table's time"
             + (f" ({seconds:g} s)" if seconds is not None else "")
             + ": their gap is to the row's own proven bound; raise --table-time to close them"
         )
+    if skipped:
+        note += f"; {skipped} process mix(es) not reached within the time"
     parts.append(Text(note + ".", style="dim"))
     return Group(*parts)
 

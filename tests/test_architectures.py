@@ -151,3 +151,56 @@ def test_a_time_limited_table_keeps_its_bounds_true():
             assert row.proven or row.gap > 0 or math.isclose(row.profit, row.profit_bound)
         else:
             assert row.reason
+
+
+# draws with several processes and multi-die designs, for the process-mix rows
+MIX_SEEDS = [8, 12, 13, 23, 40, 64, 73, 90, 105]
+
+
+@pytest.mark.parametrize("seed", MIX_SEEDS)
+def test_each_process_mix_row_equals_the_brute_force_best_of_that_mix(seed):
+    from optimizer.evaluator import Evaluator
+    from optimizer.solver.exhaustive import exhaustive_search
+    from optimizer.solver.selection import selection_mix
+
+    data = random_problem(seed)
+    problem = parse_problem(data)
+    where = f"seed {seed}: {' '.join(features_of(data))}"
+    if solve_or_none(problem, "milp") is None or len(problem.process) < 2:
+        pytest.skip(f"{where}: no design, or one process only")
+    ours = solve(problem, top=1, refine=False, architectures=True, table_time=None, split_mixes=10)
+    # brute force keeping every priced design: the best of each (packaging, dies, mix)
+    brute = exhaustive_search(Evaluator(problem), top=10**9)
+    best: dict[tuple, float] = {}
+    for sel, total in brute.priced.items():
+        cset = brute.candidates[sel.packaging_index]
+        key = (
+            problem.packaging[sel.packaging_index].name,
+            sel.n_dies,
+            selection_mix(sel, cset, len(problem.process)),
+        )
+        profit = problem.market.unit_price * problem.market.volume - total
+        best[key] = max(best.get(key, -math.inf), profit)
+    names = [p.name for p in problem.process]
+    checked = 0
+    for row in ours.architectures:
+        for sub in row.mixes:
+            counts = tuple(
+                sum(
+                    int(part.split("x ")[0])
+                    for part in sub.mix.split(" + ")
+                    if part.endswith(f"x {n}")
+                )
+                for n in names
+            )
+            key = (row.packaging, row.n_dies, counts)
+            assert sub.proven, f"{where} {key}"
+            if key not in best:
+                assert sub.design is None, f"{where} {key}: milp found {sub.profit!r}"
+                continue
+            assert sub.design is not None, f"{where} {key}: milp found none ({sub.reason})"
+            assert abs(sub.profit - best[key]) <= tolerance(best[key]), (
+                f"{where} {key}: milp {sub.profit!r} vs exhaustive {best[key]!r}"
+            )
+            checked += 1
+    assert checked or not any(row.mixes for row in ours.architectures), where

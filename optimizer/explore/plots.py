@@ -603,7 +603,8 @@ def decision_figure(rows: list[dict], title: str, currency: str = "") -> Figure:
 
     ax.xaxis.set_major_formatter(FuncFormatter(_money))
     ax.set_xlabel(f"profit [{currency}]" if currency else "profit")
-    ax.grid(axis="x", alpha=0.3, zorder=0)
+    ax.set_axisbelow(True)
+    ax.grid(axis="x", alpha=0.3)
     handles = [Patch(color=OPTIMUM_COLOR, label="optimum")]
     if any(not ordered[i].get("optimum") for i in filled):
         handles.append(Patch(color=OTHER_COLOR, label="best design of the row"))

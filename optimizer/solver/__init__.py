@@ -116,6 +116,7 @@ def solve(
     deadline: float | None = None,
     architectures: bool = False,
     table_time: float | None = 10.0,
+    split_mixes: int = 0,
 ) -> Solution:
     """Find the most profitable design(s) over every admissible choice in the problem.
 
@@ -128,7 +129,9 @@ def solve(
 
     With ``architectures`` the solution also holds the decision table: the best design
     of every (packaging, die count), each proven within it or, past ``table_time``
-    seconds spent on the table (None: no limit) or the deadline, with its own bound.
+    seconds spent on the table (None: no limit) or the deadline, with its own bound;
+    the optimum's and the ``split_mixes`` best multi-die architectures are split by
+    process mix.
     """
     if time_limit is not None:
         limit = time.perf_counter() + time_limit
@@ -216,6 +219,7 @@ def solve(
             need,
             source,
             deadline=table_deadline,
+            split=split_mixes,
         )
     return Solution(
         designs=designs,

@@ -11,12 +11,15 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
+
+import numpy as np
 
 from optimizer.designs import DesignResult, evaluate_specs
 from optimizer.evaluator import COST_COMPONENTS, Evaluator
 from optimizer.invariants import InvariantViolation
 from optimizer.problem import Requirements
+from optimizer.solver.candidates import OutOfTime, build_candidates
 from optimizer.solver.search import (
     RankedSelection,
     SearchOutcome,
@@ -25,6 +28,12 @@ from optimizer.solver.search import (
 )
 from optimizer.solver.selection import selection_specs
 from optimizer.solver.verify import verify_solution
+
+# architectures with more process mixes than this are split into the first ones only
+MAX_MIXES = 12
+# a process-mix search gets at least this many seconds of the time left: its first
+# relaxation and scout cannot be cut short, so a thinner share would find nothing
+MIX_FLOOR = 1.0
 
 # The part of the gap each money component explains, in words for tables and figures.
 GAP_LABELS = {
@@ -56,6 +65,9 @@ class ArchitectureRow:
     reason: str = ""  # why no design fills the row
     # money by which the optimum beats this row, per component (sum = profit gap)
     gap_components: dict[str, float] = field(default_factory=dict)
+    mix: str = ""  # for a process-mix row: the dies per process it is held to
+    mixes: list[ArchitectureRow] = field(default_factory=list)  # its process-mix rows
+    mixes_omitted: int = 0  # process mixes past MAX_MIXES, not searched
 
     @property
     def label(self) -> str:
@@ -66,7 +78,7 @@ class ArchitectureRow:
     def process_mix(self) -> str:
         """The processes of the row's dies, e.g. "2x leading + 1x legacy"."""
         if self.design is None:
-            return ""
+            return self.mix
         counts: dict[str, int] = {}
         for die in self.design.dies:
             counts[die.process] = counts.get(die.process, 0) + die.copies
@@ -78,6 +90,7 @@ class ArchitectureRow:
 
     def to_dict(self) -> dict:
         data = asdict(self)
+        data["mixes"] = [row.to_dict() for row in self.mixes]
         data.update(
             architecture=self.label,
             process_mix=self.process_mix,
@@ -167,108 +180,263 @@ def decision_table(
     need: Requirements,
     source: str,
     deadline: float | None = None,
+    split: int = 0,
 ) -> list[ArchitectureRow]:
     """One row per architecture, best profit first, empty rows last.
 
     ``optimum`` is the reported winner (its row is taken from the overall proof);
     ``deadline`` (a `time.perf_counter` instant) bounds the extra searches: a row still
-    open then carries its bound and gap.
+    open then carries its bound and gap. The optimum's architecture and the ``split``
+    most profitable multi-die ones are also split by process mix (rows in ``mixes``),
+    when the problem has several processes and the method is the proven search.
     """
     problem = evaluator.problem
     revenue = problem.market.unit_price * problem.market.volume
     best_key = (optimum.packaging, optimum.n_dies)
     pairs = architectures(evaluator)
+    splitting = split > 0 and len(problem.process) > 1 and outcome.method != "exhaustive"
+    # rows first; a share of the time is kept for the process mixes
+    rows_deadline = deadline
+    if deadline is not None and splitting:
+        rows_deadline = time.perf_counter() + 0.5 * max(deadline - time.perf_counter(), 0.0)
     rows: list[ArchitectureRow] = []
     seed = dict(outcome.priced)
     for index, (g, n) in enumerate(pairs):
         packaging = problem.packaging[g]
         if (packaging.name, n) == best_key:
-            gap = max(0.0, (optimum_bound - optimum.profit) / max(abs(optimum.profit), 1e-12))
-            rows.append(
-                ArchitectureRow(
-                    packaging.name,
-                    n,
-                    optimum,
-                    optimum_proven,
-                    optimum_bound,
-                    0.0 if optimum_proven else gap,
-                    optimum=True,
-                )
-            )
+            rows.append(_optimum_row(packaging.name, optimum, optimum_proven, optimum_bound))
             continue
         if g not in outcome.candidates:
-            rows.append(
-                ArchitectureRow(
-                    packaging.name,
-                    n,
-                    None,
-                    False,
-                    math.inf,
-                    math.inf,
-                    reason="not searched: the time limit ended while pricing its dies",
-                )
-            )
+            rows.append(_not_searched(packaging.name, n))
             continue
         if outcome.method == "exhaustive":
             found = _from_exhaustive(outcome, g, n, revenue)
         else:
-            # an even share of the time left for each row still to search
-            row_deadline = None
-            if deadline is not None:
-                left = max(deadline - time.perf_counter(), 0.0)
-                row_deadline = time.perf_counter() + left / (len(pairs) - index)
             found = milp_search(
                 evaluator,
                 top=1,
-                deadline=row_deadline,
+                deadline=_share(rows_deadline, len(pairs) - index),
                 requirements=need,
                 architecture=(g, n),
                 candidates=outcome.candidates,
                 seed=seed,
             )
             seed.update(found.priced)
-        bound = revenue - found.bound_total_cost
-        if not found.ranked:
-            reason = "" if found.proven else "no design found within the time limit"
-            if found.proven:
-                reason = empty_reason(evaluator, g, n, need)
-            rows.append(
-                ArchitectureRow(
-                    packaging.name, n, None, found.proven, bound, math.inf, reason=reason
-                )
-            )
-            continue
-        item = found.ranked[0]
-        cset = outcome.candidates[g]
-        specs = selection_specs(evaluator, cset, item.selection)
-        design = evaluate_specs(
-            evaluator, specs, packaging.name, f"{packaging.name} x{n}", source, requirements=need
-        )
-        tolerance = tie_tolerance(revenue, item.total_cost)
-        verify_solution(
-            problem,
-            [design],
-            need,
-            proven=found.proven,
-            bound_profit=bound,
-            proven_profit=item.profit,
-            tolerance=tolerance,
-        )
-        gap = max(0.0, (bound - design.profit) / max(abs(design.profit), 1e-12))
-        rows.append(
-            ArchitectureRow(
-                packaging.name,
-                n,
-                design,
-                found.proven,
-                bound,
-                0.0 if found.proven else gap,
-                gap_components=gap_components(optimum, design),
-            )
-        )
+        rows.append(_row_of(evaluator, found, outcome.candidates[g], g, n, optimum, need, source))
     _check_table(rows, optimum, optimum_proven, revenue)
     filled = sorted((r for r in rows if r.design is not None), key=lambda r: -r.profit)
-    return filled + [r for r in rows if r.design is None]
+    rows = filled + [r for r in rows if r.design is None]
+    if splitting:
+        rows = _split_by_mix(
+            evaluator, rows, split, optimum, optimum_proven, need, source, deadline, seed
+        )
+    return rows
+
+
+def _share(deadline: float | None, parts: int, floor: float = 0.0) -> float | None:
+    """An even share of the time left for one of ``parts`` searches still to run, at
+    least ``floor`` seconds while any time is left (never past ``deadline``)."""
+    if deadline is None:
+        return None
+    now = time.perf_counter()
+    left = max(deadline - now, 0.0)
+    return now + min(max(left / max(parts, 1), floor), left)
+
+
+def _optimum_row(
+    packaging: str, optimum: DesignResult, proven: bool, bound: float, mix: str = ""
+) -> ArchitectureRow:
+    gap = max(0.0, (bound - optimum.profit) / max(abs(optimum.profit), 1e-12))
+    return ArchitectureRow(
+        packaging,
+        optimum.n_dies,
+        optimum,
+        proven,
+        bound,
+        0.0 if proven else gap,
+        optimum=True,
+        mix=mix,
+    )
+
+
+def _not_searched(packaging: str, n: int, mix: str = "") -> ArchitectureRow:
+    return ArchitectureRow(
+        packaging,
+        n,
+        None,
+        False,
+        math.inf,
+        math.inf,
+        reason="not searched: the time limit ended while pricing its dies",
+        mix=mix,
+    )
+
+
+def _row_of(
+    evaluator: Evaluator,
+    found: SearchOutcome,
+    cset,
+    g: int,
+    n: int,
+    optimum: DesignResult,
+    need: Requirements,
+    source: str,
+    mix: str = "",
+) -> ArchitectureRow:
+    """The row a search of one architecture (or process mix) gives, checked."""
+    problem = evaluator.problem
+    packaging = problem.packaging[g]
+    revenue = problem.market.unit_price * problem.market.volume
+    bound = revenue - found.bound_total_cost
+    if not found.ranked:
+        reason = "no design found within the time limit"
+        if found.proven:
+            reason = (
+                f"no admissible design has exactly {mix}"
+                if mix
+                else empty_reason(evaluator, g, n, need)
+            )
+        return ArchitectureRow(
+            packaging.name, n, None, found.proven, bound, math.inf, reason=reason, mix=mix
+        )
+    item = found.ranked[0]
+    specs = selection_specs(evaluator, cset, item.selection)
+    design = evaluate_specs(
+        evaluator, specs, packaging.name, f"{packaging.name} x{n}", source, requirements=need
+    )
+    tolerance = tie_tolerance(revenue, item.total_cost)
+    verify_solution(
+        problem,
+        [design],
+        need,
+        proven=found.proven,
+        bound_profit=bound,
+        proven_profit=item.profit,
+        tolerance=tolerance,
+    )
+    gap = max(0.0, (bound - design.profit) / max(abs(design.profit), 1e-12))
+    return ArchitectureRow(
+        packaging.name,
+        n,
+        design,
+        found.proven,
+        bound,
+        0.0 if found.proven else gap,
+        gap_components=gap_components(optimum, design),
+        mix=mix,
+    )
+
+
+def mix_text(problem, counts: tuple[int, ...]) -> str:
+    """Dies per process in words: "2x leading + 1x legacy"."""
+    return " + ".join(f"{k}x {problem.process[p].name}" for p, k in enumerate(counts) if k)
+
+
+def process_mixes(n_processes: int, n_dies: int) -> list[tuple[int, ...]]:
+    """Every way to put ``n_dies`` dies on ``n_processes`` processes (counts per process)."""
+    if n_processes == 1:
+        return [(n_dies,)]
+    out = []
+    for first in range(n_dies, -1, -1):
+        out.extend((first, *rest) for rest in process_mixes(n_processes - 1, n_dies - first))
+    return out
+
+
+def _split_by_mix(
+    evaluator: Evaluator,
+    rows: list[ArchitectureRow],
+    split: int,
+    optimum: DesignResult,
+    optimum_proven: bool,
+    need: Requirements,
+    source: str,
+    deadline: float | None,
+    seed: dict,
+) -> list[ArchitectureRow]:
+    """The optimum's and the ``split`` best multi-die architectures, with one sub-row
+    per process mix."""
+    problem = evaluator.problem
+    index = {p.name: i for i, p in enumerate(problem.process)}
+    # the optimum's row and the best multi-die rows: mixes matter most for chiplets
+    filled = [r for r in rows if r.design is not None]
+    chosen = [r for r in filled if r.optimum]
+    chosen += [r for r in filled if r.n_dies > 1 and not r.optimum][:split]
+    jobs = []
+    omitted: dict[tuple[str, int], int] = {}
+    for row in chosen:
+        g = problem.packaging_index(row.packaging)
+        mixes = process_mixes(len(problem.process), row.n_dies)
+        jobs.extend((row, g, m) for m in mixes[:MAX_MIXES])
+        omitted[(row.packaging, row.n_dies)] = max(len(mixes) - MAX_MIXES, 0)
+    candidates: dict[int, object] = {}
+    relaxations: dict[tuple, dict] = {}
+    narrowed: dict[tuple, object] = {}
+    found_rows: dict[tuple[str, int], list[ArchitectureRow]] = {}
+    for done, (row, g, counts) in enumerate(jobs):
+        text = mix_text(problem, counts)
+        own = [0] * len(problem.process)
+        for die in row.design.dies:
+            own[index[die.process]] += die.copies
+        if tuple(own) == counts:
+            # the row's own best has this mix: it is the mix's best too
+            sub = replace(row, mix=text, mixes=[])
+        else:
+            try:
+                if g not in candidates:
+                    candidates[g] = build_candidates(
+                        evaluator, g, requirements=need, deadline=deadline, by_process=True
+                    )
+            except OutOfTime:
+                found_rows.setdefault((row.packaging, row.n_dies), []).append(
+                    _not_searched(row.packaging, row.n_dies, text)
+                )
+                continue
+            # a design of this mix uses these processes only: so do its program's
+            # columns, which tightens the relaxation the mix constraint is not part of
+            used = tuple(p for p, k in enumerate(counts) if k)
+            if (g, used) not in narrowed:
+                rows_used = np.flatnonzero(np.isin(candidates[g].process, used))
+                narrowed[g, used] = candidates[g].take(rows_used)
+            cset = narrowed[g, used]
+            found = milp_search(
+                evaluator,
+                top=1,
+                deadline=_share(deadline, len(jobs) - done, MIX_FLOOR),
+                requirements=need,
+                architecture=(g, row.n_dies, counts),
+                candidates={g: cset},
+                relaxations=relaxations.setdefault((g, used), {}),
+            )
+            sub = _row_of(evaluator, found, cset, g, row.n_dies, optimum, need, source, text)
+        found_rows.setdefault((row.packaging, row.n_dies), []).append(sub)
+    out = []
+    for row in rows:
+        subs = found_rows.get((row.packaging, row.n_dies))
+        if subs:
+            filled = sorted((r for r in subs if r.design is not None), key=lambda r: -r.profit)
+            row = replace(
+                row,
+                mixes=filled + [r for r in subs if r.design is None],
+                mixes_omitted=omitted[(row.packaging, row.n_dies)],
+            )
+            top_mix = filled[0] if filled else None
+            if top_mix is not None and top_mix.profit > row.profit + tie_tolerance(
+                row.design.revenue, row.design.revenue - row.profit
+            ):
+                if row.proven:
+                    raise InvariantViolation(
+                        f"a process mix of '{row.label}' earns {top_mix.profit:.10g}, more "
+                        f"than the architecture's proven best {row.profit:.10g}"
+                    )
+                # the row was open: the mix's design is its best found so far
+                row = replace(
+                    row,
+                    design=top_mix.design,
+                    gap=max(0.0, (row.profit_bound - top_mix.profit) / abs(top_mix.profit)),
+                    gap_components=top_mix.gap_components,
+                )
+        out.append(row)
+    return out
 
 
 def _from_exhaustive(outcome: SearchOutcome, g: int, n: int, revenue: float) -> SearchOutcome:

@@ -38,6 +38,20 @@ class CandidateSet:
     def __len__(self) -> int:
         return int(self.process.shape[0])
 
+    def take(self, rows: np.ndarray) -> CandidateSet:
+        """The candidates ``rows`` only (indices into this set)."""
+        return CandidateSet(
+            packaging_index=self.packaging_index,
+            process=self.process[rows],
+            instances=self.instances[rows],
+            spares=self.spares[rows],
+            repairs=self.repairs[rows],
+            prices=self.prices.take(rows),
+            max_copies=self.max_copies[rows],
+            level=self.level[rows],
+            critical_option=self.critical_option[rows],
+        )
+
 
 def enumerate_contents(evaluator: Evaluator, max_area_mm2: float | None = None) -> np.ndarray:
     """All block-instance vectors a single die could carry (C x B), smallest area first.
@@ -276,8 +290,12 @@ def build_candidates(
     depth: int = 1,
     requirements: Requirements | None = None,
     deadline: float | None = None,
+    by_process: bool = False,
 ) -> CandidateSet:
     """Price every admissible candidate die for one packaging option.
+
+    With ``by_process`` a die is only dropped for a dominating variant on its own
+    process, so that designs with a stated count of dies per process stay complete.
 
     With ``prune`` (the solver's default) variants of a content dominated by ``depth``
     others (the number of ranked designs wanted) are dropped; the exhaustive reference
@@ -326,7 +344,8 @@ def build_candidates(
     # yield-improvement situation: processes without a defect-reduction curve together
     # (no target, nothing shared), each (process, target) of a curve process on its own.
     curve = np.array([p.defect_reduction is not None for p in problem.process])
-    spend_key = np.where(curve[process[idx]], 1 + process[idx] * 1000 + extra["level"][idx], 0)
+    own = curve[process[idx]] | by_process
+    spend_key = np.where(own, 1 + process[idx] * 1000 + extra["level"][idx], 0)
     group = _row_groups(np.column_stack([inst[idx], spend_key]))
     # every term of the profit a die enters: its cost, its test escapes, its NRE, its
     # area (carrier cost) and, for one-die products, the partly good dies each salvage

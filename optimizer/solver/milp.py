@@ -161,6 +161,8 @@ class Columns:
     # built for one span share rows and columns (columns above their count unusable)
     span: int = 0
     like: Columns | None = field(default=None, repr=False)  # lends its constraint matrix
+    # (dies per process, process of each candidate): hold the relaxation to a process mix
+    mix: tuple[tuple[int, ...], np.ndarray] | None = field(default=None, repr=False)
 
     def __getattr__(self, name: str):
         # the shared arrays read as the program's own (columns.col_c, columns.cover, ...)
@@ -523,6 +525,14 @@ def _linear_program(columns: Columns) -> _LinearProgram:
         lower += [np.array([-np.inf]), columns.carrier_intercepts]
         upper += [np.array([columns.area_cap]), np.full(len(columns.carrier_slopes), np.inf)]
     n_var = n + n_y + (1 if interposer else 0)
+    if columns.mix is not None:
+        counts, process = columns.mix
+        on = process[columns.col_c]
+        k = columns.col_k.astype(float)
+        rows = np.array([np.where(on == p, k, 0.0) for p in range(len(counts))])
+        a = sp.vstack([a, sp.csr_matrix(np.c_[rows, np.zeros((len(counts), n_var - n))])])
+        lower.append(np.asarray(counts, dtype=float))
+        upper.append(np.asarray(counts, dtype=float))
     return _LinearProgram(
         matrix=a.tocsc(),
         row_lower=np.concatenate(lower).astype(float),
@@ -616,8 +626,13 @@ def relax(
     h = _solver_for(program, chosen, scale)
     order = chosen.tolist()
     if generate:
-        # one artificial per coverage row and the die-count row, dearer than any design
-        rows = columns.cover.shape[0] + 1
+        # one artificial per coverage row, the die-count row and any process-mix row
+        # (the last rows), dearer than any design
+        at = np.arange(columns.cover.shape[0] + 1, dtype=np.int32)
+        if columns.mix is not None:
+            total = program.row_lower.size
+            at = np.r_[at, np.arange(total - len(columns.mix[0]), total, dtype=np.int32)]
+        rows = at.size
         big = 100.0 * float(np.abs(program.cost).max() + 1.0) / scale
         h.addCols(
             rows,
@@ -626,7 +641,7 @@ def relax(
             np.full(rows, np.inf),
             rows,
             np.arange(rows, dtype=np.int32),
-            np.arange(rows, dtype=np.int32),
+            at,
             np.ones(rows),
         )
         order += [-1] * rows
@@ -777,8 +792,18 @@ class SubProblem:
         return self.columns.n_dies
 
 
-def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
-    """The Pyomo integer program over the columns ``keep`` (indices into ``columns``)."""
+def build_subproblem(
+    columns: Columns,
+    keep: np.ndarray,
+    mix: tuple[int, ...] | None = None,
+    process: np.ndarray | None = None,
+) -> SubProblem:
+    """The Pyomo integer program over the columns ``keep`` (indices into ``columns``).
+
+    With ``mix`` (dies per process, indexed like the problem's processes) and
+    ``process`` (the process of each candidate die) it holds only selections with
+    exactly that many dies on each process.
+    """
     if columns.n_dies_max:
         raise ValueError("an integer program needs one die count, not a range")
     keep = np.asarray(keep, dtype=np.int64)
@@ -801,6 +826,23 @@ def build_subproblem(columns: Columns, keep: np.ndarray) -> SubProblem:
     m.count = pyo.Constraint(
         expr=LinearExpression(linear_coefs=col_k.tolist(), linear_vars=w) == columns.n_dies
     )
+    if mix is not None:
+        on = process[columns.col_c[keep]]
+        m.mix = pyo.ConstraintList()
+        for p, dies in enumerate(mix):
+            mine = np.flatnonzero(on == p)
+            if mine.size == 0:
+                if dies:
+                    # no kept column on a process the mix needs: no selection at all
+                    m.none = pyo.Var(bounds=(0, 0))
+                    m.mix.add(m.none == dies)
+                continue
+            m.mix.add(
+                LinearExpression(
+                    linear_coefs=col_k[mine].tolist(), linear_vars=[w[i] for i in mine]
+                )
+                == dies
+            )
     m.once = pyo.ConstraintList()
     groups = columns.once_groups[keep]
     order = np.argsort(groups, kind="stable")

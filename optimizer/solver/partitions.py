@@ -115,18 +115,23 @@ def enumerate_program(
     top: int,
     budget: int,
     deadline: float | None = None,
+    mix: tuple[int, ...] | None = None,
 ) -> tuple[list[tuple[float, Selection]], int] | None:
     """Every design of exactly ``n_dies`` dies built from candidates ``allowed``, priced.
 
     Returns the ``top`` cheapest (total cost, selection) pairs and how many designs were
     priced, or None when there are more than ``budget`` designs (counted before any is
     priced) or the deadline passes. An exact alternative to the integer program for a
-    (packaging, die count) pair whose cut-and-price loop runs long.
+    (packaging, die count) pair whose cut-and-price loop runs long. With ``mix`` (dies
+    per process) only designs with exactly that many dies on each process are priced.
     """
     problem = evaluator.problem
     revenue = problem.market.unit_price * problem.market.volume
     total = tuple(int(x) for x in evaluator.blocks.count)
     allowed = np.asarray(allowed, dtype=np.int64)
+    if mix is not None:
+        wanted = np.flatnonzero(np.asarray(mix) > 0)
+        allowed = allowed[np.isin(cset.process[allowed], wanted)]
     # the walk over partitions visits every content at every step: only for programs
     # with few candidate dies (the integer program is the better tool for the others)
     if allowed.size > MAX_CANDIDATES:
@@ -155,6 +160,14 @@ def enumerate_program(
     buffers: dict[int, list[np.ndarray]] = {}
     for groups in partitions:
         rows = assignments([(np.array(variants[key]), m) for key, m in groups])
+        if mix is not None:
+            on = cset.process[rows]
+            fits = np.ones(len(rows), dtype=bool)
+            for p, dies in enumerate(mix):
+                fits &= (on == p).sum(axis=1) == dies
+            rows = rows[fits]
+            if not len(rows):
+                continue
         buffers.setdefault(rows.shape[1], []).append(rows)
     for width in list(buffers):
         price_batch(evaluator, cset, np.concatenate(buffers.pop(width)), top, revenue, best)

@@ -35,7 +35,7 @@ from optimizer.solver.milp import (
     solve_round,
 )
 from optimizer.solver.partitions import enumerate_program
-from optimizer.solver.selection import Selection, price_selections
+from optimizer.solver.selection import Selection, price_selections, selection_mix
 
 # Designs whose profits differ by less than this share of the best profit are ties: the
 # proof says no design is more profitable than the winner by more than that.
@@ -95,9 +95,10 @@ def milp_search(
     screen_columns: int = 200,
     candidate_cache: dict | None = None,
     requirements: Requirements | None = None,
-    architecture: tuple[int, int] | None = None,
+    architecture: tuple[int, int] | tuple[int, int, tuple[int, ...]] | None = None,
     candidates: dict[int, CandidateSet] | None = None,
     seed: dict[Selection, float] | None = None,
+    relaxations: dict | None = None,
 ) -> SearchOutcome:
     """Proven top-``top`` designs by integer programming with exact verification.
 
@@ -110,10 +111,14 @@ def milp_search(
     candidate dies included.
 
     With ``architecture`` = (packaging index, die count) only designs of that packaging
-    and die count are searched: the best of one architecture, proven within it.
+    and die count are searched: the best of one architecture, proven within it. A third
+    item, the dies per process (indexed like the problem's processes), narrows it to
+    one process mix; ``candidates`` must then be pruned per process.
     ``candidates`` (from an earlier search of the same problem) skips the pricing of
     candidate dies, and ``seed`` (designs priced earlier, selection -> total cost) gives
-    the search its first incumbents.
+    the search its first incumbents. ``relaxations`` (a dict the caller keeps) shares
+    programs and their relaxations between searches of one candidate table: the
+    process-mix searches of one architecture relax the same program.
     """
     start = time.perf_counter()
     problem = evaluator.problem
@@ -141,11 +146,18 @@ def milp_search(
         range(len(problem.packaging)),
         key=lambda g: (problem.packaging[g].kind != "single_die", g),
     )
+    mix = architecture[2] if architecture is not None and len(architecture) > 2 else None
     if architecture is not None:
         order = [architecture[0]]
+        architecture = (architecture[0], architecture[1])
 
     def in_scope(sel: Selection) -> bool:
-        return architecture is None or (sel.packaging_index, sel.n_dies) == architecture
+        if architecture is None:
+            return True
+        if (sel.packaging_index, sel.n_dies) != architecture:
+            return False
+        found = selection_mix(sel, candidates[sel.packaging_index], len(problem.process))
+        return mix is None or found == mix
 
     pricing_cut = False
     try:
@@ -168,6 +180,9 @@ def milp_search(
     if candidate_cache is not None and not pricing_cut:
         candidate_cache[key] = candidates
 
+    process_of = None
+    if mix is not None and architecture[0] in candidates:
+        process_of = candidates[architecture[0]].process
     exact: dict[Selection, float] = {
         sel: total for sel, total in (seed or {}).items() if in_scope(sel)
     }
@@ -213,6 +228,7 @@ def milp_search(
             top,
             most,
             soft_deadline(),
+            mix=mix,
         )
         if found is None:
             return None
@@ -239,7 +255,9 @@ def milp_search(
             continue
         whole = np.flatnonzero(np.all(cset.instances == evaluator.blocks.count[None, :], axis=1))
         if whole.size:
-            sels = [Selection.of(g, [(int(c), 1)]) for c in whole]
+            sels = [s for s in (Selection.of(g, [(int(c), 1)]) for c in whole) if in_scope(s)]
+            if not sels:
+                continue
             prices = price_selections(evaluator, cset, sels)
             for sel, profit in zip(sels, prices.profit, strict=True):
                 exact[sel] = float(revenue - profit)
@@ -273,9 +291,18 @@ def milp_search(
                     continue
         for n in counts:
             span = n_max if architecture is None else n
-            columns = build_columns(evaluator, candidates[g], n, span=span, like=joint)
+            shared = relaxations.get((g, n, mix)) if relaxations is not None else None
+            if shared is not None:
+                columns = shared[0]
+            else:
+                columns = build_columns(evaluator, candidates[g], n, span=span, like=joint)
             if columns is None:
                 continue
+            if mix is not None:
+                on = process_of[columns.col_c[columns.usable]]
+                if any(dies and not np.any(on == p) for p, dies in enumerate(mix)):
+                    continue  # a process the mix needs has no die here: no design
+                columns.mix = (mix, process_of)
             cheap = columns.quick_bound()
             if joint_bound is not None and open_bound(cheap):
                 cheap = max(cheap, dual_bound(columns, joint_bound.row_dual))
@@ -298,7 +325,19 @@ def milp_search(
             timed_out = True
             unexplored.append(cheap)
             continue
-        bound = relax(columns, row_hint=hint, stop_above=threshold(), deadline=soft_deadline())
+        shared = (
+            relaxations.get((columns.packaging_index, columns.n_dies))
+            if relaxations is not None
+            else None
+        )
+        if shared is not None and shared[0] is columns:
+            bound = shared[1]
+        else:
+            limit = threshold()
+            bound = relax(columns, row_hint=hint, stop_above=limit, deadline=soft_deadline())
+            # only a relaxation solved to the end serves other searches
+            if relaxations is not None and math.isinf(limit) and not out_of_time():
+                relaxations[key] = (columns, bound)
         columns.release_arrays()  # its integer program needs only the columns
         if not bound.feasible or not open_bound(bound.value):
             continue
@@ -321,10 +360,15 @@ def milp_search(
         width = screen_columns
         while _screen(bound, usable, threshold()).size > screen_columns:
             few = np.union1d(order[:width], basic)
+            if mix is not None:
+                # the best columns of every process the mix needs, not just the best
+                on = process_of[columns.col_c[order]]
+                for p in np.flatnonzero(np.asarray(mix) > 0):
+                    few = np.union1d(few, order[on == p][:width])
             few = few[usable[few]]
             if few.size >= usable.sum():
                 break
-            scout = build_subproblem(columns, few)
+            scout = build_subproblem(columns, few, mix, process_of)
             # the scout is for incumbents only: its bound is not used, so a loose gap
             scout.solver.config.rel_gap = SCOUT_GAP
             for _ in range(top):
@@ -338,7 +382,7 @@ def milp_search(
             if not scout.exhausted:
                 break  # not for want of columns: stopped by its time limit
             width *= SCOUT_WIDEN
-        sub = build_subproblem(columns, _screen(bound, usable, threshold()))
+        sub = build_subproblem(columns, _screen(bound, usable, threshold()), mix, process_of)
         sub.bound = value
         sub.log.append(f"relaxation {value:.8g}; {sub.keep.size} of {columns.n_cols} columns kept")
         subs.append(sub)
@@ -381,7 +425,7 @@ def milp_search(
                     continue
             order = np.argsort(bound.reduced_cost, kind="stable")
             few = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
-            scout = build_subproblem(columns, few)
+            scout = build_subproblem(columns, few, mix, process_of)
             solve_round(scout, remaining())
             price(scout)
             if any(math.isfinite(v) for v in exact.values()):

@@ -34,6 +34,15 @@ class Selection:
         return sum(k for _, k in self.dies)
 
 
+def selection_mix(selection: Selection, candidates: CandidateSet, n_processes: int = 0) -> tuple:
+    """Dies per process (indexed like the problem's processes) of a selection."""
+    size = max(n_processes, int(candidates.process.max(initial=-1)) + 1)
+    counts = [0] * size
+    for c, k in selection.dies:
+        counts[int(candidates.process[c])] += k
+    return tuple(counts)
+
+
 def price_selections(
     evaluator: Evaluator, candidates: CandidateSet, selections: list[Selection]
 ) -> ProductPrices:
