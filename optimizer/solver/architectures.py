@@ -35,21 +35,6 @@ MAX_MIXES = 12
 # relaxation and scout cannot be cut short, so a thinner share would find nothing
 MIX_FLOOR = 1.0
 
-# The part of the gap each money component explains, in words for tables and figures.
-GAP_LABELS = {
-    "silicon": "silicon",
-    "interface": "die-to-die interface",
-    "sort_test": "sort and repair test",
-    "die_scrap": "dies failed at sort",
-    "carrier": "substrate / interposer",
-    "assembly": "assembly",
-    "final_test": "final test",
-    "package_scrap": "failed packages",
-    "nre_per_unit": "NRE",
-    "improvement_per_unit": "yield improvement",
-    "salvage": "salvage revenue",
-}
-
 
 @dataclass(frozen=True)
 class ArchitectureRow:
