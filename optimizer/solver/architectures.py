@@ -186,6 +186,15 @@ def decision_table(
         rows_deadline = time.perf_counter() + 0.5 * max(deadline - time.perf_counter(), 0.0)
     rows: list[ArchitectureRow] = []
     seed = dict(outcome.priced)
+    # most promising rows first (best design already priced for them, then fewest dies),
+    # so that under a time limit the rows that compete with the optimum are proven and
+    # the ones far behind keep a gap
+    known: dict[tuple[int, int], float] = {}
+    for sel, total in seed.items():
+        key = (sel.packaging_index, sel.n_dies)
+        if math.isfinite(total):
+            known[key] = min(known.get(key, math.inf), total)
+    pairs.sort(key=lambda pair: (known.get(pair, math.inf), pair[1], pair[0]))
     for index, (g, n) in enumerate(pairs):
         packaging = problem.packaging[g]
         if (packaging.name, n) == best_key:

@@ -32,14 +32,18 @@ def multiset_partitions(
     multiset of parts appear exactly once.
     """
     allowed = sorted(set(parts), reverse=True)
+    # parts holding block b, for each b: the next part must hold the first block still
+    # to place (every later part is lexicographically no larger, so none of them could)
+    holding = [[part for part in allowed if part[b] > 0] for b in range(len(total))]
 
     def rec(remaining: tuple[int, ...], ceiling: tuple[int, ...], chosen: list):
-        if not any(remaining):
+        first = next((b for b, r in enumerate(remaining) if r), None)
+        if first is None:
             yield list(chosen)
             return
         if len(chosen) == max_parts:
             return
-        for part in allowed:
+        for part in holding[first]:
             if part > ceiling:
                 continue
             if all(p <= r for p, r in zip(part, remaining, strict=True)):
