@@ -33,9 +33,10 @@ from rich.text import Text
 from typer import _click
 from typer.core import TyperGroup
 
+# Only light modules here: --help and --version must not load numpy, numba, scipy, pint,
+# pandas or matplotlib. Each command imports the library parts it uses when it runs.
 from optimizer import __version__, report
-from optimizer.designs import designs_toml, evaluate_design
-from optimizer.evaluator import Evaluator
+from optimizer.errors import ProblemError
 from optimizer.invariants import InvariantViolation
 from optimizer.outputs import (
     check_results_dir,
@@ -46,7 +47,6 @@ from optimizer.outputs import (
     text_writer,
     write_run_folder,
 )
-from optimizer.problem import ProblemError, load_problem
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERNAL = 3
@@ -334,7 +334,10 @@ def _console() -> Console:
 @app.command()
 def check(problem_path: ProblemPath) -> None:
     """Validate a problem file and show what was understood, in base units."""
+    from optimizer.designs import evaluate_design
+    from optimizer.evaluator import Evaluator
     from optimizer.explore.paths import check_uncertain
+    from optimizer.problem import load_problem
 
     preflight()
     problem = load_problem(problem_path)
@@ -369,6 +372,10 @@ def evaluate(
     Designs that break a rule or mandate of the file are priced, marked with the rules
     they break and listed after every design that keeps them all.
     """
+    from optimizer.designs import evaluate_design
+    from optimizer.evaluator import Evaluator
+    from optimizer.problem import load_problem
+
     preflight()
     problem = load_problem(problem_path)
     if not problem.design:
@@ -488,6 +495,7 @@ def solve(
     """
     # the time limit is wall-clock for the whole command from here, loading included
     deadline = None if time_limit is None else time.perf_counter() + time_limit
+    from optimizer.problem import load_problem
     from optimizer.solver import METHODS
     from optimizer.solver import solve as run_solver
     from optimizer.targets import price_requirements
@@ -655,6 +663,8 @@ def _flips_csv(flips) -> str:
 
 
 def _designs_toml(solution, problem) -> str:
+    from optimizer.designs import designs_toml
+
     results = list(solution.designs)
     names = [f"solved_rank{rank}" for rank in range(1, len(results) + 1)]
     for row in solution.architectures:
@@ -780,6 +790,7 @@ def profit_curve_command(
 ) -> None:
     """Profit and cost per good unit of the winning design against its yield target."""
     from optimizer.explore.plots import literal_text
+    from optimizer.problem import load_problem
     from optimizer.solver import solve as run_solver
     from optimizer.targets import cost_rises_without_bound, profit_curve, profit_curve_figure
 

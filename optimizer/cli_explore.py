@@ -15,15 +15,15 @@ import os
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
-import pandas as pd
 import typer
 from rich.console import Console
-from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.text import Text
 
+# light imports only (see optimizer/cli.py); commands import the library when they run
 from optimizer.cli import ProblemPath, app, finite, preflight
+from optimizer.errors import ProblemError
 from optimizer.outputs import (
     Writer,
     clean,
@@ -35,8 +35,10 @@ from optimizer.outputs import (
     text_writer,
     write_run_folder,
 )
-from optimizer.problem import ProblemError
 from optimizer.report import CAUTION, cells, literal_table, money
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 ResultsDir = Annotated[Path, typer.Option("--results", help="Folder for the run folder.")]
 AsJson = Annotated[bool, typer.Option("--json", help="Print one JSON object.")]
@@ -74,6 +76,14 @@ def _progress(console: Console, enabled: bool) -> Iterator[tuple[Callable, Calla
     if not (enabled and console.is_terminal):
         yield (lambda name, total: None), (lambda done, total: None)
         return
+    from rich.progress import (
+        BarColumn,
+        MofNCompleteColumn,
+        Progress,
+        TextColumn,
+        TimeElapsedColumn,
+    )
+
     columns = (
         TextColumn("{task.description}"),
         BarColumn(),

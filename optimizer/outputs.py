@@ -20,7 +20,7 @@ import time
 from collections.abc import Callable
 from pathlib import Path
 
-from optimizer.problem import ProblemError
+from optimizer.errors import ProblemError
 
 Writer = Callable[[Path], None]
 

@@ -9,13 +9,15 @@ printed as written instead of being read as console markup.
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
 from rich.console import Group
 from rich.table import Table
 from rich.text import Text
 
-from optimizer.designs import DesignResult, design_text
-from optimizer.problem import Problem
+if TYPE_CHECKING:  # the command line imports CAUTION for --help: no numpy, numba, pint
+    from optimizer.designs import DesignResult
+    from optimizer.problem import Problem
 
 CAUTION = (
     "Estimates for comparing options early; real decisions need the foundry's and the "
@@ -430,6 +432,8 @@ def solution_view(solution) -> Group:
 
 def short_design(result: DesignResult) -> str:
     """The design's one text (see :func:`optimizer.designs.design_text`)."""
+    from optimizer.designs import design_text
+
     return design_text(result)
 
 
@@ -626,7 +630,7 @@ def flips_view(challenger: DesignResult, rows, currency: str) -> Group:
     table = literal_table(
         f"Where the optimum and the challenger trade places (both designs held fixed)\n"
         f"challenger: {challenger.packaging}, {challenger.n_dies} "
-        f"{'die' if challenger.n_dies == 1 else 'dies'} ({design_text(challenger)})"
+        f"{'die' if challenger.n_dies == 1 else 'dies'} ({short_design(challenger)})"
     )
     table.add_column("input")
     table.add_column("file value", justify="right")

@@ -101,6 +101,13 @@ def _unit(text: str) -> pint.Unit | None:
     return _REGISTRY.parse_units("1" + text if text.startswith("/") else text)
 
 
+@lru_cache(maxsize=512)
+def _factor(unit_text: str, base_unit: str) -> float:
+    """Base units per one ``unit_text`` (every unit dieplan reads is a pure scale), kept
+    because re-reading a file for each scenario of a sweep converts the same units."""
+    return float(_REGISTRY.Quantity(1.0, _unit(unit_text)).to(base_unit).magnitude)
+
+
 def to_base(value: object, kind: QuantityKind) -> float:
     """Convert a quantity string such as ``"120 mm^2"`` to a finite float in ``kind.base_unit``.
 
@@ -154,7 +161,7 @@ def to_base(value: object, kind: QuantityKind) -> float:
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # overflow is reported below, not warned
-            result = float(_REGISTRY.Quantity(magnitude, unit).to(kind.base_unit).magnitude)
+            result = magnitude * _factor(unit_text, kind.base_unit)
     except pint.DimensionalityError:
         raise UnitError(
             f"{shorten(value)} has the wrong dimension for {_article(kind.name)} "

@@ -449,7 +449,7 @@ def break_even(
     paths: Sequence[str],
     low_factor: float = 0.1,
     high_factor: float = 10.0,
-    points: int = 25,
+    points: int = 13,
 ) -> list[BreakEven]:
     """Break-even of each input between two fixed designs, one input at a time.
 
