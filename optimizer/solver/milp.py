@@ -40,11 +40,7 @@ from dataclasses import dataclass, field
 
 import highspy
 import numpy as np
-import pyomo.environ as pyo
 import scipy.sparse as sp
-from pyomo.contrib.solver.common.results import TerminationCondition
-from pyomo.contrib.solver.solvers.highs import Highs
-from pyomo.core.expr.numeric_expr import LinearExpression
 
 from optimizer.evaluator import Evaluator
 from optimizer.problem import Packaging
@@ -768,14 +764,13 @@ class SubProblem:
     """The integer program of one (packaging, die count) pair over kept columns."""
 
     columns: Columns
-    keep: np.ndarray  # column indices in the Pyomo model
-    model: pyo.ConcreteModel
-    solver: Highs
+    keep: np.ndarray  # column indices of the program's first variables
+    solver: highspy.Highs
     bound: float = -math.inf  # lower bound on total cost of selections not yet cut off
     exhausted: bool = False
     failed: bool = False  # the solver gave up on it: its bound stays open, unproven
     enumeration_tried: bool = False  # whether pricing all its designs was attempted
-    scale: float = 1.0  # the model's objective is the cost divided by this
+    scale: float = 1.0  # the objective is the cost divided by this
     current: Selection | None = None
     active: np.ndarray | None = None
     rounds: int = 0
@@ -791,6 +786,91 @@ class SubProblem:
     def n_dies(self) -> int:
         return self.columns.n_dies
 
+    def set_gap(self, rel_gap: float) -> None:
+        """Stop at this relative gap (a scout needs an incumbent, not a proof)."""
+        self.solver.setOptionValue("mip_rel_gap", float(rel_gap))
+
+
+def program_rows(
+    columns: Columns,
+    keep: np.ndarray,
+    mix: tuple[int, ...] | None = None,
+    process: np.ndarray | None = None,
+) -> tuple[sp.csr_matrix, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, int]:
+    """The integer program over the columns ``keep``, as arrays.
+
+    Variables: one binary w per kept column, one binary y per defect target above the
+    base level, and (interposers) the carrier cost c. Rows: every block instance covered
+    exactly once, the die count, the dies per process of ``mix``, at most one column per
+    candidate die (copies are columns), the target rows, the interposer area cap and the
+    carrier under-estimator c >= slope x area + intercept. Returns the matrix, row
+    bounds, objective (cost, in money), integrality and column upper bounds, and the
+    number of w variables. :mod:`optimizer.solver.formulation` states the same program
+    in Pyomo, as a readable check.
+    """
+    n_w = keep.size
+    n_y = columns.n_targets
+    interposer = columns.carrier_slopes is not None
+    n_var = n_w + n_y + (1 if interposer else 0)
+    col_k = columns.col_k[keep].astype(float)
+    blocks: list[sp.csr_matrix] = []
+    lower: list[np.ndarray] = []
+    upper: list[np.ndarray] = []
+
+    def add(rows: sp.spmatrix, lo, hi) -> None:
+        rows = sp.csr_matrix(rows)
+        if rows.shape[1] < n_var:
+            rows = sp.hstack([rows, sp.csr_matrix((rows.shape[0], n_var - rows.shape[1]))])
+        blocks.append(sp.csr_matrix(rows))
+        lower.append(np.broadcast_to(np.asarray(lo, dtype=float), (rows.shape[0],)))
+        upper.append(np.broadcast_to(np.asarray(hi, dtype=float), (rows.shape[0],)))
+
+    add(columns.cover[:, keep], columns.cover_rhs, columns.cover_rhs)
+    add(col_k[None, :], columns.n_dies, columns.n_dies)
+    if mix is not None:
+        on = process[columns.col_c[keep]]
+        for p, dies in enumerate(mix):
+            # a process without a kept column gives an empty row: infeasible if dies > 0
+            add(np.where(on == p, col_k, 0.0)[None, :], dies, dies)
+    groups = columns.once_groups[keep]
+    _, inverse, sizes = np.unique(groups, return_inverse=True, return_counts=True)
+    multi = np.flatnonzero(sizes[inverse] > 1)
+    if multi.size:
+        _, row_of = np.unique(inverse[multi], return_inverse=True)
+        once = sp.csr_matrix(
+            (np.ones(multi.size), (row_of, multi)), shape=(int(row_of.max()) + 1, n_w)
+        )
+        add(once, -np.inf, 1.0)
+    y_cost = np.zeros(0)
+    if n_y:
+        t_rows, _, t_hi, y_cost = target_rows(columns)
+        t_rows = t_rows.tocsc()
+        picked = sp.hstack([t_rows[:, keep], t_rows[:, columns.n_cols :]], format="csr")
+        add(picked, -np.inf, t_hi)
+    if interposer:
+        area = columns.area[keep]
+        add(np.r_[area, np.zeros(n_var - n_w)][None, :], -np.inf, columns.area_cap)
+        slopes, intercepts = columns.carrier_slopes, columns.carrier_intercepts
+        pwl = np.zeros((slopes.size, n_var))
+        pwl[:, :n_w] = -slopes[:, None] * area[None, :]
+        pwl[:, -1] = 1.0
+        add(pwl, intercepts, np.inf)
+    matrix = sp.vstack(blocks, format="csr")
+    cost = np.r_[
+        columns.cost[keep], y_cost, [columns.carrier_factor] if interposer else []
+    ].astype(float)
+    integral = np.r_[np.ones(n_w + n_y, dtype=bool), np.zeros(n_var - n_w - n_y, dtype=bool)]
+    col_upper = np.r_[np.ones(n_w + n_y), [_carrier_top(columns)] if interposer else []]
+    return (
+        matrix,
+        np.concatenate(lower),
+        np.concatenate(upper),
+        cost,
+        integral,
+        col_upper,
+        n_w,
+    )
+
 
 def build_subproblem(
     columns: Columns,
@@ -798,7 +878,8 @@ def build_subproblem(
     mix: tuple[int, ...] | None = None,
     process: np.ndarray | None = None,
 ) -> SubProblem:
-    """The Pyomo integer program over the columns ``keep`` (indices into ``columns``).
+    """The integer program over the columns ``keep`` (indices into ``columns``), handed
+    to HiGHS directly (rebuilding it through a modelling layer cost 0.4 s a program).
 
     With ``mix`` (dies per process, indexed like the problem's processes) and
     ``process`` (the process of each candidate die) it holds only selections with
@@ -808,111 +889,32 @@ def build_subproblem(
         raise ValueError("an integer program needs one die count, not a range")
     keep = np.asarray(keep, dtype=np.int64)
     keep = keep[columns.usable[keep]]
-    m = pyo.ConcreteModel()
-    m.w = pyo.Var(range(keep.size), domain=pyo.Binary)
-    w = [m.w[i] for i in range(keep.size)]
-    cover = columns.cover[:, keep].tocsr()
-    m.cover = pyo.ConstraintList()
-    for b in range(cover.shape[0]):
-        lo, hi = cover.indptr[b], cover.indptr[b + 1]
-        m.cover.add(
-            LinearExpression(
-                linear_coefs=cover.data[lo:hi].tolist(),
-                linear_vars=[w[i] for i in cover.indices[lo:hi]],
-            )
-            == float(columns.cover_rhs[b])
-        )
-    col_k = columns.col_k[keep].astype(float)
-    m.count = pyo.Constraint(
-        expr=LinearExpression(linear_coefs=col_k.tolist(), linear_vars=w) == columns.n_dies
-    )
-    if mix is not None:
-        on = process[columns.col_c[keep]]
-        m.mix = pyo.ConstraintList()
-        for p, dies in enumerate(mix):
-            mine = np.flatnonzero(on == p)
-            if mine.size == 0:
-                if dies:
-                    # no kept column on a process the mix needs: no selection at all
-                    m.none = pyo.Var(bounds=(0, 0))
-                    m.mix.add(m.none == dies)
-                continue
-            m.mix.add(
-                LinearExpression(
-                    linear_coefs=col_k[mine].tolist(), linear_vars=[w[i] for i in mine]
-                )
-                == dies
-            )
-    m.once = pyo.ConstraintList()
-    groups = columns.once_groups[keep]
-    order = np.argsort(groups, kind="stable")
-    bounds = np.flatnonzero(np.r_[True, groups[order][1:] != groups[order][:-1], True])
-    for lo, hi in zip(bounds[:-1], bounds[1:], strict=True):
-        if hi - lo > 1:
-            m.once.add(
-                LinearExpression(
-                    linear_coefs=[1.0] * int(hi - lo), linear_vars=[w[i] for i in order[lo:hi]]
-                )
-                <= 1
-            )
+    matrix, row_lo, row_hi, cost, integral, col_hi, _ = program_rows(columns, keep, mix, process)
     # costs near one keep HiGHS's tolerances meaningful (raw costs reach 1e9)
     scale = max(1.0, float(np.median(np.abs(columns.cost[keep])))) if keep.size else 1.0
-    objective = LinearExpression(
-        constant=columns.constant / scale,
-        linear_coefs=(columns.cost[keep] / scale).tolist(),
-        linear_vars=w,
-    )
-    if columns.n_targets:
-        # the same target rows as the relaxation, restricted to the kept columns
-        t_rows, _, t_hi, y_cost = target_rows(columns)
-        m.y = pyo.Var(range(columns.n_targets), domain=pyo.Binary)
-        position = -np.ones(columns.n_cols + columns.n_targets, dtype=np.int64)
-        position[keep] = np.arange(keep.size)
-        variables = w + [m.y[j] for j in range(columns.n_targets)]
-        position[columns.n_cols :] = keep.size + np.arange(columns.n_targets)
-        m.targets = pyo.ConstraintList()
-        for r in range(t_rows.shape[0]):
-            lo, hi = t_rows.indptr[r], t_rows.indptr[r + 1]
-            idx = t_rows.indices[lo:hi]
-            mask = position[idx] >= 0
-            m.targets.add(
-                LinearExpression(
-                    linear_coefs=t_rows.data[lo:hi][mask].tolist(),
-                    linear_vars=[variables[i] for i in position[idx][mask]],
-                )
-                <= float(t_hi[r])
-            )
-        objective = objective + LinearExpression(
-            linear_coefs=(y_cost / scale).tolist(),
-            linear_vars=[m.y[j] for j in range(columns.n_targets)],
-        )
-    if columns.carrier_slopes is not None:
-        m.carrier = pyo.Var(domain=pyo.NonNegativeReals)
-        area = columns.area[keep]
-        m.area_cap = pyo.Constraint(
-            expr=LinearExpression(linear_coefs=area.tolist(), linear_vars=w) <= columns.area_cap
-        )
-        m.carrier_lb = pyo.ConstraintList()
-        for slope, intercept in zip(
-            columns.carrier_slopes, columns.carrier_intercepts, strict=True
-        ):
-            m.carrier_lb.add(
-                m.carrier
-                >= LinearExpression(
-                    constant=float(intercept),
-                    linear_coefs=(slope * area).tolist(),
-                    linear_vars=w,
-                )
-            )
-        m.objective = pyo.Objective(expr=objective + columns.carrier_factor / scale * m.carrier)
-    else:
-        m.objective = pyo.Objective(expr=objective)
-    m.nogood = pyo.ConstraintList()
-    solver = Highs()
-    solver.config.load_solutions = False
-    solver.config.raise_exception_on_nonoptimal_result = False
-    solver.config.rel_gap = 1e-10
-    solver.config.abs_gap = 0.0
+    a = matrix.tocsc()
+    h = highspy.Highs()
+    h.setOptionValue("output_flag", False)
+    lp = highspy.HighsLp()
+    lp.num_col_ = a.shape[1]
+    lp.num_row_ = a.shape[0]
+    lp.col_cost_ = cost / scale
+    lp.offset_ = columns.constant / scale
+    lp.col_lower_ = np.zeros(a.shape[1])
+    lp.col_upper_ = col_hi
+    lp.row_lower_ = row_lo
+    lp.row_upper_ = row_hi
+    lp.a_matrix_.format_ = highspy.MatrixFormat.kColwise
+    lp.a_matrix_.start_ = a.indptr.astype(np.int32)
+    lp.a_matrix_.index_ = a.indices.astype(np.int32)
+    lp.a_matrix_.value_ = a.data.astype(float)
+    lp.integrality_ = [
+        highspy.HighsVarType.kInteger if i else highspy.HighsVarType.kContinuous
+        for i in integral
+    ]
+    h.passModel(lp)
+    h.setOptionValue("mip_rel_gap", 1e-10)
+    h.setOptionValue("mip_abs_gap", 0.0)
     # tight feasibility tolerances: the search lowers the bound read back by SOLVER_RTOL,
     # which must cover the solver's own error
     for name in (
@@ -920,44 +922,59 @@ def build_subproblem(
         "primal_feasibility_tolerance",
         "dual_feasibility_tolerance",
     ):
-        solver.config.solver_options[name] = 1e-9
-    return SubProblem(columns, keep, m, solver, scale=scale)
+        h.setOptionValue(name, 1e-9)
+    return SubProblem(columns, keep, h, scale=scale)
+
+
+_ERRORS = {
+    highspy.HighsModelStatus.kSolveError,
+    highspy.HighsModelStatus.kPresolveError,
+    highspy.HighsModelStatus.kPostsolveError,
+    highspy.HighsModelStatus.kModelError,
+}
+
+
+def run_mip(h: highspy.Highs) -> highspy.HighsModelStatus:
+    """Run HiGHS on its integer program; the model status (a seam for tests)."""
+    h.run()
+    return h.getModelStatus()
 
 
 def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
     """Solve the current program; set its bound and the selection it found."""
     start = time.perf_counter()
-    if time_limit is not None:
-        sub.solver.config.time_limit = max(time_limit, 0.01)
-    result = sub.solver.solve(sub.model)
-    if result.termination_condition == TerminationCondition.error:
+    h = sub.solver
+    h.setOptionValue("time_limit", max(time_limit, 0.01) if time_limit is not None else math.inf)
+    status = run_mip(h)
+    if status in _ERRORS:
         # HiGHS's presolve can fail on a program that cuts have made infeasible; solve
         # this program without it from now on
-        sub.solver.config.solver_options["presolve"] = "off"
-        result = sub.solver.solve(sub.model)
+        h.setOptionValue("presolve", "off")
+        status = run_mip(h)
     sub.rounds += 1
     sub.seconds += time.perf_counter() - start
-    tc = result.termination_condition
-    if tc in (TerminationCondition.provenInfeasible, TerminationCondition.infeasibleOrUnbounded):
+    if status == highspy.HighsModelStatus.kInfeasible:
         sub.exhausted = True
         sub.bound = math.inf
         sub.current = None
         sub.log.append(f"round {sub.rounds}: no selection left")
         return
-    bound = result.objective_bound
-    if bound is not None and math.isfinite(bound):
-        # trusted only to the solver's precision (see SOLVER_RTOL)
-        value = float(bound) * sub.scale
-        sub.bound = max(sub.bound, value - SOLVER_RTOL * abs(value))
-    if result.incumbent_objective is None:
+    info = h.getInfo()
+    if status not in _ERRORS:
+        bound = info.mip_dual_bound
+        if bound is not None and math.isfinite(bound):
+            # trusted only to the solver's precision (see SOLVER_RTOL)
+            value = float(bound) * sub.scale
+            sub.bound = max(sub.bound, value - SOLVER_RTOL * abs(value))
+    feasible = status not in _ERRORS and info.primal_solution_status == 2
+    if not feasible:
         sub.current = None
-        if tc != TerminationCondition.maxTimeLimit:
+        if status != highspy.HighsModelStatus.kTimeLimit:
             # the solver failed: stop working on this program, its bound stays open
             sub.failed = sub.exhausted = True
-        sub.log.append(f"round {sub.rounds}: no selection found ({tc.name})")
+        sub.log.append(f"round {sub.rounds}: no selection found ({status.name})")
         return
-    result.solution_loader.load_vars()
-    values = np.array([sub.model.w[i].value or 0.0 for i in range(sub.keep.size)])
+    values = np.asarray(h.getSolution().col_value)[: sub.keep.size]
     active = np.flatnonzero(values > 0.5)
     cols = sub.keep[active]
     sub.current = Selection.of(
@@ -966,18 +983,13 @@ def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
     sub.active = active
     sub.log.append(
         f"round {sub.rounds}: bound {sub.bound:.8g}, selection objective "
-        f"{result.incumbent_objective * sub.scale:.8g} ({tc.name})"
+        f"{info.objective_function_value * sub.scale:.8g} ({status.name})"
     )
 
 
 def cut_current(sub: SubProblem) -> None:
     """Exclude the current selection from the program (a single no-good inequality)."""
-    active = sub.active
-    sub.model.nogood.add(
-        LinearExpression(
-            linear_coefs=[1.0] * len(active), linear_vars=[sub.model.w[int(i)] for i in active]
-        )
-        <= len(active) - 1
-    )
+    active = np.asarray(sub.active, dtype=np.int32)
+    sub.solver.addRow(-np.inf, float(active.size - 1), active.size, active, np.ones(active.size))
     sub.cuts += 1
     sub.current = None  # the bound stays valid: a cut can only raise the optimum

@@ -370,7 +370,7 @@ def milp_search(
                 break
             scout = build_subproblem(columns, few, mix, process_of)
             # the scout is for incumbents only: its bound is not used, so a loose gap
-            scout.solver.config.rel_gap = SCOUT_GAP
+            scout.set_gap(SCOUT_GAP)
             for _ in range(top):
                 solve_round(scout, budget())
                 price(scout)
