@@ -26,9 +26,10 @@ from optimizer.solver.search import (
     tie_tolerance,
 )
 from optimizer.solver.selection import selection_specs
+from optimizer.solver.subset_dp import subset_dp
 from optimizer.solver.verify import verify_solution
 
-METHODS = ("milp", "exhaustive")
+METHODS = ("milp", "exhaustive", "subset_dp")
 
 
 @dataclass(frozen=True)
@@ -149,6 +150,10 @@ def solve(
     elif method == "exhaustive":
         outcome = exhaustive_search(
             evaluator, top=top, requirements=requirements, deadline=deadline
+        )
+    elif method == "subset_dp":
+        outcome = subset_dp(
+            evaluator, top=top, requirements=requirements, deadline=deadline, source=source
         )
     else:
         raise ValueError(f"unknown method {method!r}; use one of {METHODS}")
