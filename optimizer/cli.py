@@ -10,6 +10,10 @@ checked before any work and run folders appear whole or not at all.
 The error handling lives in :class:`OneLineGroup`, the click group of ``app``, so the
 installed ``dieplan`` script (``optimizer.cli:app``) and tests through
 ``typer.testing.CliRunner`` take the same path.
+
+Heavy libraries (numpy, numba, scipy, pint, pandas, matplotlib, the solver) load inside
+the commands that use them, so ``--help`` and ``--version`` answer at once;
+tests/test_startup.py guards this.
 """
 
 from __future__ import annotations

@@ -39,7 +39,6 @@ from typing import NamedTuple
 import numpy as np
 from numba import njit
 from numpy.typing import ArrayLike
-from scipy import integrate
 from scipy.linalg import eigh_tridiagonal
 from scipy.special import roots_genlaguerre
 
@@ -1193,6 +1192,8 @@ def _log_yield_by_quadrature(model, density, alpha, layers, plain, block) -> flo
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             v = float(log_integrand(np.array([x]))[0] - peak)
         return math.exp(v) if v > -745 else 0.0
+
+    from scipy import integrate  # only this fallback needs it (slow to import)
 
     value, _ = integrate.quad(
         integrand, lo, hi, points=points or None, epsabs=0.0, epsrel=1e-13, limit=500

@@ -856,9 +856,9 @@ def program_rows(
         pwl[:, -1] = 1.0
         add(pwl, intercepts, np.inf)
     matrix = sp.vstack(blocks, format="csr")
-    cost = np.r_[
-        columns.cost[keep], y_cost, [columns.carrier_factor] if interposer else []
-    ].astype(float)
+    cost = np.r_[columns.cost[keep], y_cost, [columns.carrier_factor] if interposer else []].astype(
+        float
+    )
     integral = np.r_[np.ones(n_w + n_y, dtype=bool), np.zeros(n_var - n_w - n_y, dtype=bool)]
     col_upper = np.r_[np.ones(n_w + n_y), [_carrier_top(columns)] if interposer else []]
     return (
@@ -909,8 +909,7 @@ def build_subproblem(
     lp.a_matrix_.index_ = a.indices.astype(np.int32)
     lp.a_matrix_.value_ = a.data.astype(float)
     lp.integrality_ = [
-        highspy.HighsVarType.kInteger if i else highspy.HighsVarType.kContinuous
-        for i in integral
+        highspy.HighsVarType.kInteger if i else highspy.HighsVarType.kContinuous for i in integral
     ]
     h.passModel(lp)
     h.setOptionValue("mip_rel_gap", 1e-10)
