@@ -24,36 +24,58 @@ MAX_CONTENTS = 400
 
 
 def multiset_partitions(
-    total: tuple[int, ...], parts: list[tuple[int, ...]], max_parts: int
+    total: tuple[int, ...], parts: list[tuple[int, ...]], max_parts: int, exact: bool = False
 ) -> Iterator[list[tuple[int, ...]]]:
-    """Partitions of the count vector ``total`` into allowed ``parts`` (each multiset once).
+    """Partitions of the count vector ``total`` into allowed ``parts`` (each multiset once),
+    into at most ``max_parts`` parts, or exactly that many with ``exact``.
 
     Parts are produced in non-increasing lexicographic order, which makes every
     multiset of parts appear exactly once.
     """
+    n_blocks = len(total)
+    # Count vectors packed into one integer, block 0 in the highest field, each field one
+    # bit wider than its total needs: integer order is then lexicographic order, and
+    # "part fits in remaining" is a subtraction that leaves every field's spare top bit.
+    widths = [int(t).bit_length() + 1 for t in total]
+    offsets = [sum(widths[b + 1 :]) for b in range(n_blocks)]
+    guard = sum(1 << (offsets[b] + widths[b] - 1) for b in range(n_blocks))
+    field_of = [0] * (sum(widths) + 1)  # highest set bit -> its block
+    for b in range(n_blocks):
+        for bit in range(offsets[b], offsets[b] + widths[b]):
+            field_of[bit + 1] = b
+
+    def pack(vector: tuple[int, ...]) -> int:
+        return sum(int(v) << offsets[b] for b, v in enumerate(vector))
+
     allowed = sorted(set(parts), reverse=True)
+    largest = max((sum(part) for part in allowed), default=1)
     # parts holding block b, for each b: the next part must hold the first block still
     # to place (every later part is lexicographically no larger, so none of them could)
-    holding = [[part for part in allowed if part[b] > 0] for b in range(len(total))]
+    holding = [
+        [(pack(part), sum(part), part) for part in allowed if part[b] > 0]
+        for b in range(n_blocks)
+    ]
 
-    def rec(remaining: tuple[int, ...], ceiling: tuple[int, ...], chosen: list):
-        first = next((b for b, r in enumerate(remaining) if r), None)
-        if first is None:
-            yield list(chosen)
+    def rec(remaining: int, left: int, ceiling: int, chosen: list):
+        if remaining == 0:
+            if not exact or len(chosen) == max_parts:
+                yield list(chosen)
             return
-        if len(chosen) == max_parts:
+        room = max_parts - len(chosen)
+        # every part holds at least one instance and at most `largest`
+        if room == 0 or -(-left // largest) > room or (exact and left < room):
             return
-        for part in holding[first]:
-            if part > ceiling:
+        first = field_of[remaining.bit_length()]
+        guarded = remaining | guard
+        for code, size, part in holding[first]:
+            if code > ceiling or (guarded - code) & guard != guard:
                 continue
-            if all(p <= r for p, r in zip(part, remaining, strict=True)):
-                chosen.append(part)
-                yield from rec(
-                    tuple(r - p for r, p in zip(remaining, part, strict=True)), part, chosen
-                )
-                chosen.pop()
+            chosen.append(part)
+            yield from rec(remaining - code, left - size, code, chosen)
+            chosen.pop()
 
-    yield from rec(tuple(total), tuple(total), [])
+    whole = pack(tuple(total))
+    yield from rec(whole, int(sum(total)), whole, [])
 
 
 def assignments(groups: list[tuple[np.ndarray, int]]) -> np.ndarray:
@@ -147,7 +169,7 @@ def enumerate_program(
         return None
     partitions = []
     count = visited = 0
-    for partition in multiset_partitions(total, list(variants), n_dies):
+    for partition in multiset_partitions(total, list(variants), n_dies, exact=True):
         # partitions into fewer parts are walked but not priced: they count towards
         # the budget too, so that a large program is given up quickly
         visited += 1
