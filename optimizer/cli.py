@@ -500,7 +500,7 @@ def solve(
             min=0,
             help="Split the optimum's and the best N multi-die architectures by process mix.",
         ),
-    ] = 2,
+    ] = 1,
     by_architecture: Annotated[
         bool,
         typer.Option(
