@@ -448,8 +448,13 @@ def solve(
     problem_path: ProblemPath,
     top: Annotated[int, typer.Option("--top", "-k", min=1, help="How many ranked designs.")] = 3,
     method: Annotated[
-        str, typer.Option("--method", help="milp (proven, default) or exhaustive (small problems).")
-    ] = "milp",
+        str,
+        typer.Option(
+            "--method",
+            help="auto (default: subset_dp where it is exact, else milp), milp, subset_dp, "
+            "or exhaustive (small problems).",
+        ),
+    ] = "auto",
     time_limit: Annotated[
         float | None,
         typer.Option(

@@ -384,7 +384,8 @@ def solution_view(solution) -> Group:
     elif math.isfinite(solution.profit_bound):
         status = (
             f"best found; proven profit bound {money(solution.profit_bound, cur)}, "
-            f"gap {percent(solution.gap, 3)}"
+            f"gap {percent(solution.gap, 3)} on profit, {percent(solution.cost_gap, 3)} on "
+            "total cost"
         )
     else:
         status = "best found; no bound proven yet"

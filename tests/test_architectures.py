@@ -204,3 +204,26 @@ def test_each_process_mix_row_equals_the_brute_force_best_of_that_mix(seed):
             )
             checked += 1
     assert checked or not any(row.mixes for row in ours.architectures), where
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_rows_from_the_subset_method_equal_brute_force(seed):
+    # the subset DP keeps the best design of every (packaging, die count) it priced, so
+    # its table needs no extra search; it must still be brute force's, row by row
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).parent.parent / "benchmarks"))
+    from tie_family import tie_problem
+
+    problem = parse_problem(tie_problem(seed, 7, processes=3))
+    ours = solve(problem, top=1, method="auto", refine=False, architectures=True, table_time=None)
+    assert ours.method == "subset_dp"
+    brute = _table(problem, "exhaustive")
+    mine = {(row.packaging, row.n_dies): row for row in ours.architectures}
+    assert set(mine) == set(brute)
+    for key, theirs in brute.items():
+        assert (mine[key].design is None) == (theirs.design is None), key
+        if theirs.design is not None:
+            assert mine[key].proven
+            assert abs(mine[key].profit - theirs.profit) <= tolerance(theirs.profit), key

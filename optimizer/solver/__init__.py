@@ -26,10 +26,17 @@ from optimizer.solver.search import (
     tie_tolerance,
 )
 from optimizer.solver.selection import selection_specs
-from optimizer.solver.subset_dp import subset_dp
+from optimizer.solver.subset_dp import applicability, subset_dp
 from optimizer.solver.verify import verify_solution
 
-METHODS = ("milp", "exhaustive", "subset_dp")
+METHODS = ("auto", "milp", "exhaustive", "subset_dp")
+
+
+def choose_method(problem: Problem) -> str:
+    """The exact method for ``problem``: the subset dynamic program where it is exact
+    (it proves the many-near-ties problems the integer programs find hardest), else the
+    integer-programming search."""
+    return "subset_dp" if applicability(problem) is None else "milp"
 
 
 @dataclass(frozen=True)
@@ -40,7 +47,7 @@ class Solution:
     method: str
     proven_optimal: bool
     profit_bound: float
-    gap: float
+    gap: float  # relative to profit
     seconds: float
     stats: dict
     log: list[str]
@@ -49,6 +56,9 @@ class Solution:
     proof: str = ""  # what the claim covers, in words
     tie_tolerance: float = 0.0  # money within which designs count as tied
     refined_gain: float = 0.0  # profit the continuous refinement added beyond the proof
+    # relative to total cost (volume x cost per good unit + one-time costs - salvage):
+    # at a high price a small profit gap can hide a much dearer design
+    cost_gap: float = 0.0
     # the best design of every architecture (packaging, die count), best first
     architectures: list[ArchitectureRow] = field(default_factory=list)
 
@@ -62,6 +72,7 @@ class Solution:
             "proven_optimal": self.proven_optimal,
             "profit_bound": self.profit_bound,
             "gap": self.gap,
+            "cost_gap": self.cost_gap,
             "seconds": self.seconds,
             "stats": self.stats,
             "targets_refined": self.targets_refined,
@@ -139,6 +150,8 @@ def solve(
         deadline = limit if deadline is None else min(deadline, limit)
     need = requirements if requirements is not None else problem.requirements
     evaluator = Evaluator(problem)
+    if method == "auto":
+        method = choose_method(problem)
     if method == "milp":
         outcome: SearchOutcome = milp_search(
             evaluator,
@@ -232,6 +245,7 @@ def solve(
         proven_optimal=outcome.proven,
         profit_bound=bound,
         gap=0.0 if outcome.proven else gap,
+        cost_gap=0.0 if outcome.proven else cost_gap(outcome, evaluator),
         seconds=outcome.seconds,
         stats=outcome.stats,
         log=outcome.log,
@@ -242,6 +256,14 @@ def solve(
         refined_gain=refined_gain,
         architectures=rows,
     )
+
+
+def cost_gap(outcome: SearchOutcome, evaluator: Evaluator) -> float:
+    """Gap between the best total cost found and the proven cost bound, relative."""
+    if not outcome.ranked:
+        return math.inf
+    best = outcome.ranked[0].total_cost
+    return max(0.0, (best - outcome.bound_total_cost) / max(abs(best), 1e-12))
 
 
 def proof_statement(
@@ -276,4 +298,4 @@ def proof_statement(
     return text
 
 
-__all__ = ["METHODS", "Solution", "explain_difference", "solve"]
+__all__ = ["METHODS", "Solution", "choose_method", "explain_difference", "solve"]

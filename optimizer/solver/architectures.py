@@ -203,7 +203,8 @@ def decision_table(
         if g not in outcome.candidates:
             rows.append(_not_searched(packaging.name, n))
             continue
-        if outcome.method == "exhaustive":
+        if outcome.method in ("exhaustive", "subset_dp"):
+            # both keep the best design of every architecture they priced, proven
             found = _from_exhaustive(outcome, g, n, revenue)
         else:
             found = milp_search(
