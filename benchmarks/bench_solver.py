@@ -27,7 +27,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).parent))
 
-from synthetic import synthetic_problem  # noqa: E402
+from synthetic import synthetic_data, synthetic_problem  # noqa: E402
 
 from optimizer.formulas import wafer  # noqa: E402
 from optimizer.problem import ProblemError  # noqa: E402
@@ -57,6 +57,34 @@ def compare(label: str, problem, repeat: int) -> None:
     )
 
 
+def whole_process(label: str, data: dict, repeat: int) -> None:
+    """`dieplan solve` as a user runs it: a fresh process, the file read from disk."""
+    import subprocess
+    import tempfile
+
+    from fuzz_solver import to_toml
+
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "bench.toml"
+        path.write_text(to_toml(data))
+        exe = Path(sys.executable).with_name("dieplan")
+        for extra in ([], ["--table-time", "0"]):
+            times = []
+            for _ in range(repeat):
+                t0 = time.perf_counter()
+                subprocess.run(
+                    [str(exe), "solve", str(path), "--no-write", *extra],
+                    check=True,
+                    stdout=subprocess.DEVNULL,
+                )
+                times.append(time.perf_counter() - t0)
+            what = " ".join(extra) or "default options (decision table included)"
+            print(
+                f"{label}, whole process, {what}: median {statistics.median(times):.2f} s "
+                f"of {repeat} (min {min(times):.2f} s)"
+            )
+
+
 def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--sizes", type=int, nargs="*", default=[4, 6, 8, 10, 12, 14, 16, 18, 20])
@@ -69,6 +97,8 @@ def main() -> None:
     warm = synthetic_problem(4)
     solve(warm, top=1)
     solve(warm, top=1, method="exhaustive")
+    whole_process("8 blocks, benchmark problem", synthetic_data(8), 3)
+    whole_process("8 blocks, chiplet-favoured variant", synthetic_data(8, chiplet_favoured=True), 3)
     if not args.skip_exhaustive:
         compare("8 blocks, benchmark problem", synthetic_problem(8), args.repeat)
         compare(

@@ -325,11 +325,8 @@ def milp_search(
             timed_out = True
             unexplored.append(cheap)
             continue
-        shared = (
-            relaxations.get((columns.packaging_index, columns.n_dies))
-            if relaxations is not None
-            else None
-        )
+        rkey = (columns.packaging_index, columns.n_dies, mix)
+        shared = relaxations.get(rkey) if relaxations is not None else None
         if shared is not None and shared[0] is columns:
             bound = shared[1]
         else:
@@ -337,7 +334,7 @@ def milp_search(
             bound = relax(columns, row_hint=hint, stop_above=limit, deadline=soft_deadline())
             # only a relaxation solved to the end serves other searches
             if relaxations is not None and math.isinf(limit) and not out_of_time():
-                relaxations[key] = (columns, bound)
+                relaxations[rkey] = (columns, bound)
         columns.release_arrays()  # its integer program needs only the columns
         if not bound.feasible or not open_bound(bound.value):
             continue
