@@ -52,8 +52,7 @@ def multiset_partitions(
     # parts holding block b, for each b: the next part must hold the first block still
     # to place (every later part is lexicographically no larger, so none of them could)
     holding = [
-        [(pack(part), sum(part), part) for part in allowed if part[b] > 0]
-        for b in range(n_blocks)
+        [(pack(part), sum(part), part) for part in allowed if part[b] > 0] for b in range(n_blocks)
     ]
 
     def rec(remaining: int, left: int, ceiling: int, chosen: list):
