@@ -776,6 +776,7 @@ class SubProblem:
     rounds: int = 0
     seconds: float = 0.0
     cuts: int = 0
+    stalls: int = 0  # rounds that ran out of time without a design
     log: list[str] = field(default_factory=list)
 
     @property
@@ -925,6 +926,9 @@ def build_subproblem(
     return SubProblem(columns, keep, h, scale=scale)
 
 
+# programs with more columns than this are solved without presolve under a time limit
+PRESOLVE_MAX_COLUMNS = 20_000
+
 _ERRORS = {
     highspy.HighsModelStatus.kSolveError,
     highspy.HighsModelStatus.kPresolveError,
@@ -944,6 +948,10 @@ def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
     start = time.perf_counter()
     h = sub.solver
     h.setOptionValue("time_limit", max(time_limit, 0.01) if time_limit is not None else math.inf)
+    if time_limit is not None and sub.keep.size > PRESOLVE_MAX_COLUMNS:
+        # HiGHS's presolve of a large program does not stop at the time limit (a
+        # 65,000-column program ran 60 s past a 1 s limit): under a limit, skip it
+        h.setOptionValue("presolve", "off")
     status = run_mip(h)
     if status in _ERRORS:
         # HiGHS's presolve can fail on a program that cuts have made infeasible; solve
@@ -971,6 +979,8 @@ def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
         if status != highspy.HighsModelStatus.kTimeLimit:
             # the solver failed: stop working on this program, its bound stays open
             sub.failed = sub.exhausted = True
+        else:
+            sub.stalls += 1
         sub.log.append(f"round {sub.rounds}: no selection found ({status.name})")
         return
     values = np.asarray(h.getSolution().col_value)[: sub.keep.size]

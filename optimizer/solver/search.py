@@ -50,6 +50,8 @@ ENUMERATE_BUDGET = 200_000
 ENUMERATE_FIRST = 20_000
 # relative gap at which a scouting integer program (incumbents only, no bound) stops
 SCOUT_GAP = 1e-3
+# under a time limit, a round of an integer program gets at least this many seconds
+ROUND_FLOOR = 1.0
 # a scouting program left with no design has this many times more columns next time
 SCOUT_WIDEN = 4
 
@@ -318,6 +320,24 @@ def milp_search(
     # searched first, so that its designs tighten the threshold for the others.
     relaxed: list[tuple[float, Columns, RelaxedBound]] = []
     subs: list[SubProblem] = []
+    searched: set = set()
+
+    def until(end: float) -> float:
+        """Seconds to ``end`` (at least ROUND_FLOOR while time is left)."""
+        left = budget()
+        wanted = max(end - time.perf_counter(), ROUND_FLOOR)
+        return wanted if left is None else min(left, wanted)
+
+    def share(parts: int) -> float:
+        """Seconds for one of ``parts`` searches still to run. Without a limit, a slice
+        as long as the search so far: a program whose round runs out is tried again
+        later with a longer one, after the others (so that no single hard program
+        holds up the designs that would screen it)."""
+        left = budget()
+        if left is None:
+            return max(ROUND_FLOOR, time.perf_counter() - start)
+        return max(min(left, ROUND_FLOOR), left / max(parts, 1))
+
     for cheap, columns, hint in programs:
         if not open_bound(cheap):
             continue
@@ -354,6 +374,9 @@ def milp_search(
         # drops as many columns as possible; widened while it holds no design at all
         order = np.argsort(np.where(usable, bound.reduced_cost, np.inf), kind="stable")
         basic = np.flatnonzero(~bound.at_zero)
+        # this program's share of the time: its scouts and its first round
+        part = share(sum(1 for _, c, _ in programs if id(c) not in searched))
+        program_end = time.perf_counter() + part
         width = screen_columns
         while _screen(bound, usable, threshold()).size > screen_columns:
             few = np.union1d(order[:width], basic)
@@ -369,7 +392,7 @@ def milp_search(
             # the scout is for incumbents only: its bound is not used, so a loose gap
             scout.set_gap(SCOUT_GAP)
             for _ in range(top):
-                solve_round(scout, budget())
+                solve_round(scout, until(program_end))
                 price(scout)
                 if scout.current is None or out_of_time():
                     break
@@ -383,14 +406,19 @@ def milp_search(
         sub.bound = value
         sub.log.append(f"relaxation {value:.8g}; {sub.keep.size} of {columns.n_cols} columns kept")
         subs.append(sub)
-        solve_round(sub, budget())
+        # under a time limit, a first round gets a share of it: one hard program must
+        # not keep the others (and their designs) from being looked at
+        solve_round(sub, until(program_end))
+        searched.add(id(columns))
         price(sub)
     log.append(f"{len(relaxed)} relaxations kept, {time.perf_counter() - start:.2f} s")
     while not timed_out:
         open_subs = [s for s in subs if not s.exhausted and open_bound(s.bound)]
         if not open_subs:
             break
-        sub = min(open_subs, key=lambda s: s.bound)
+        # lowest bound first, but a program whose last round ran out of its time share
+        # without a design waits until the others have had theirs
+        sub = min(open_subs, key=lambda s: (s.stalls, s.bound))
         if sub.current is not None:
             cut_current(sub)
         if out_of_time():
@@ -405,7 +433,7 @@ def milp_search(
                 sub.exhausted, sub.bound, sub.current = True, math.inf, None
                 sub.log.append(f"closed by pricing all {count} of its designs")
                 continue
-        solve_round(sub, budget())
+        solve_round(sub, share(len(open_subs)))
         price(sub)
     if timed_out and not any(math.isfinite(v) for v in exact.values()):
         # out of time before any design: a short look at the most promising program so
