@@ -116,11 +116,21 @@ def compare(
     out["status"], out["shortfall"] = classify(out)
     if out["status"] == "agree" and out.get("exhaustive_rows") != out.get("milp_rows"):
         theirs, mine = out["exhaustive_rows"], out["milp_rows"]
-        if set(theirs) != set(mine) or any(
-            (a is None) != (b is None)
-            or (a is not None and (not b[1] or abs(a[0] - b[0]) > REL_TOL * _scale(a[0])))
-            for a, b in ((theirs[k], mine[k]) for k in theirs)
-        ):
+
+        def wrong(a, b) -> bool:
+            """A row that contradicts brute force: a proven row off its best, any row
+            above it, or a bound below it (an open row may miss designs; with a time
+            limit a row may also be left empty)."""
+            if a is None:
+                return b is not None
+            if b is None:
+                return time_limit is None
+            tol = REL_TOL * _scale(a[0])
+            if b[1] and abs(a[0] - b[0]) > tol:
+                return True
+            return b[0] > a[0] + tol or b[2] < a[0] - tol or (time_limit is None and not b[1])
+
+        if set(theirs) != set(mine) or any(wrong(theirs[k], mine[k]) for k in theirs):
             out["status"] = "architecture_differs"
     if refine and out["status"] == "agree" and out["exhaustive"] is not None:
         refined = solve(problem, top=1, method="milp", refine=True, time_limit=time_limit)
@@ -133,7 +143,9 @@ def compare(
 def _rows(solution) -> dict:
     """Architecture -> (profit, proven) of its best design, or None when it has none."""
     return {
-        f"{row.packaging}/{row.n_dies}": (row.profit, row.proven) if row.design else None
+        f"{row.packaging}/{row.n_dies}": (row.profit, row.proven, row.profit_bound)
+        if row.design
+        else None
         for row in solution.architectures
     }
 
