@@ -34,6 +34,9 @@ MAX_MIXES = 12
 # a process-mix search gets at least this many seconds of the time left: its first
 # relaxation and scout cannot be cut short, so a thinner share would find nothing
 MIX_FLOOR = 1.0
+# likewise for an architecture's first search: most rows close in well under a second,
+# and the few that need a few seconds should not be cut and searched again
+ROW_FLOOR = 2.5
 
 
 @dataclass(frozen=True)
@@ -210,7 +213,7 @@ def decision_table(
             found = milp_search(
                 evaluator,
                 top=1,
-                deadline=_share(rows_deadline, len(pairs) - index),
+                deadline=_share(rows_deadline, len(pairs) - index, ROW_FLOOR),
                 requirements=need,
                 architecture=(g, n),
                 candidates=outcome.candidates,
@@ -225,7 +228,54 @@ def decision_table(
         rows = _split_by_mix(
             evaluator, rows, split, optimum, optimum_proven, need, source, deadline, seed
         )
+    if deadline is not None and outcome.method not in ("exhaustive", "subset_dp"):
+        rows = _second_pass(evaluator, outcome, rows, optimum, need, source, deadline, seed)
+        _check_table(rows, optimum, optimum_proven, revenue)
     return rows
+
+
+def _second_pass(
+    evaluator: Evaluator,
+    outcome: SearchOutcome,
+    rows: list[ArchitectureRow],
+    optimum: DesignResult,
+    need: Requirements,
+    source: str,
+    deadline: float,
+    seed: dict,
+) -> list[ArchitectureRow]:
+    """Rows left open by their first share of the time searched again, most promising
+    first, with the time the others did not use (and every design priced so far)."""
+    problem = evaluator.problem
+    redo = [
+        i
+        for i, row in enumerate(rows)
+        if not row.proven and not row.optimum and "time limit ended while pricing" not in row.reason
+    ]
+    rows = list(rows)
+    for done, i in enumerate(redo):
+        if time.perf_counter() >= deadline:
+            break
+        row = rows[i]
+        g = problem.packaging_index(row.packaging)
+        found = milp_search(
+            evaluator,
+            top=1,
+            deadline=_share(deadline, len(redo) - done),
+            requirements=need,
+            architecture=(g, row.n_dies),
+            candidates=outcome.candidates,
+            seed=seed,
+        )
+        seed.update(found.priced)
+        again = _row_of(
+            evaluator, found, outcome.candidates[g], g, row.n_dies, optimum, need, source
+        )
+        better = again.design is not None and (row.design is None or again.profit > row.profit)
+        if again.proven or better or again.profit_bound < row.profit_bound:
+            rows[i] = replace(again, mixes=row.mixes, mixes_omitted=row.mixes_omitted)
+    filled = sorted((r for r in rows if r.design is not None), key=lambda r: -r.profit)
+    return filled + [r for r in rows if r.design is None]
 
 
 def _share(deadline: float | None, parts: int, floor: float = 0.0) -> float | None:

@@ -927,7 +927,7 @@ def build_subproblem(
 
 
 # programs with more columns than this are solved without presolve under a time limit
-PRESOLVE_MAX_COLUMNS = 20_000
+PRESOLVE_MAX_COLUMNS = 50_000
 
 _ERRORS = {
     highspy.HighsModelStatus.kSolveError,
