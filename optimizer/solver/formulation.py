@@ -14,7 +14,7 @@ import pyomo.environ as pyo
 from pyomo.contrib.solver.solvers.highs import Highs
 from pyomo.core.expr.numeric_expr import LinearExpression
 
-from optimizer.solver.milp import Columns, target_rows
+from optimizer.solver.milp import Columns, kept_columns, target_rows
 
 
 def pyomo_program(
@@ -30,10 +30,7 @@ def pyomo_program(
     ``process`` (the process of each candidate die) it holds only selections with
     exactly that many dies on each process.
     """
-    if columns.n_dies_max:
-        raise ValueError("an integer program needs one die count, not a range")
-    keep = np.asarray(keep, dtype=np.int64)
-    keep = keep[columns.usable[keep]]
+    keep = kept_columns(columns, keep)
     m = pyo.ConcreteModel()
     m.w = pyo.Var(range(keep.size), domain=pyo.Binary)
     w = [m.w[i] for i in range(keep.size)]

@@ -873,6 +873,14 @@ def program_rows(
     )
 
 
+def kept_columns(columns: Columns, keep: np.ndarray) -> np.ndarray:
+    """The columns of ``keep`` an integer program of ``columns`` may use."""
+    if columns.n_dies_max:
+        raise ValueError("an integer program needs one die count, not a range")
+    keep = np.asarray(keep, dtype=np.int64)
+    return keep[columns.usable[keep]]
+
+
 def build_subproblem(
     columns: Columns,
     keep: np.ndarray,
@@ -886,10 +894,7 @@ def build_subproblem(
     ``process`` (the process of each candidate die) it holds only selections with
     exactly that many dies on each process.
     """
-    if columns.n_dies_max:
-        raise ValueError("an integer program needs one die count, not a range")
-    keep = np.asarray(keep, dtype=np.int64)
-    keep = keep[columns.usable[keep]]
+    keep = kept_columns(columns, keep)
     matrix, row_lo, row_hi, cost, integral, col_hi, _ = program_rows(columns, keep, mix, process)
     # costs near one keep HiGHS's tolerances meaningful (raw costs reach 1e9)
     scale = max(1.0, float(np.median(np.abs(columns.cost[keep])))) if keep.size else 1.0
