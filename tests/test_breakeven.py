@@ -163,8 +163,8 @@ def _demo(name: str, explicit: str | None = None):
             (d for d in ranked if (d.packaging, d.n_dies) != (best.packaging, best.n_dies)), None
         )
         if other is None:
-            if len(study.problem.packaging) < 2:
-                pytest.skip(f"{name}: one packaging and no other die count in the top 20")
+            # the demos have several packagings, so dropping the winner's leaves a design
+            assert len(study.problem.packaging) >= 2, name
             edited = parse_problem(_without(study.data, best.packaging), study.source)
             other = solve(edited, top=1).best
     optimum = FixedDesign.from_result(best, study.problem)
