@@ -77,7 +77,7 @@ class ArchitectureRow:
         return self.design.profit if self.design is not None else math.nan
 
     def to_dict(self) -> dict:
-        data = asdict(self)
+        data = asdict(replace(self, mixes=[]))
         data["mixes"] = [row.to_dict() for row in self.mixes]
         data.update(
             architecture=self.label,
@@ -222,8 +222,7 @@ def decision_table(
             seed.update(found.priced)
         rows.append(_row_of(evaluator, found, outcome.candidates[g], g, n, optimum, need, source))
     _check_table(rows, optimum, optimum_proven, revenue)
-    filled = sorted((r for r in rows if r.design is not None), key=lambda r: -r.profit)
-    rows = filled + [r for r in rows if r.design is None]
+    rows = best_first(rows)
     if splitting:
         rows = _split_by_mix(
             evaluator, rows, split, optimum, optimum_proven, need, source, deadline, seed
@@ -250,7 +249,9 @@ def _second_pass(
     redo = [
         i
         for i, row in enumerate(rows)
-        if not row.proven and not row.optimum and "time limit ended while pricing" not in row.reason
+        if not row.proven
+        and not row.optimum
+        and problem.packaging_index(row.packaging) in outcome.candidates
     ]
     rows = list(rows)
     for done, i in enumerate(redo):
@@ -274,6 +275,11 @@ def _second_pass(
         better = again.design is not None and (row.design is None or again.profit > row.profit)
         if again.proven or better or again.profit_bound < row.profit_bound:
             rows[i] = replace(again, mixes=row.mixes, mixes_omitted=row.mixes_omitted)
+    return best_first(rows)
+
+
+def best_first(rows: list[ArchitectureRow]) -> list[ArchitectureRow]:
+    """Rows with a design by profit, best first, then the empty ones in their order."""
     filled = sorted((r for r in rows if r.design is not None), key=lambda r: -r.profit)
     return filled + [r for r in rows if r.design is None]
 
@@ -414,7 +420,6 @@ def _split_by_mix(
         jobs.extend((row, g, m) for m in mixes[:MAX_MIXES])
         omitted[(row.packaging, row.n_dies)] = max(len(mixes) - MAX_MIXES, 0)
     candidates: dict[int, object] = {}
-    relaxations: dict[tuple, dict] = {}
     narrowed: dict[tuple, object] = {}
     found_rows: dict[tuple[str, int], list[ArchitectureRow]] = {}
     for done, (row, g, counts) in enumerate(jobs):
@@ -450,7 +455,6 @@ def _split_by_mix(
                 requirements=need,
                 architecture=(g, row.n_dies, counts),
                 candidates={g: cset},
-                relaxations=relaxations.setdefault((g, used), {}),
             )
             sub = _row_of(evaluator, found, cset, g, row.n_dies, optimum, need, source, text)
         found_rows.setdefault((row.packaging, row.n_dies), []).append(sub)
@@ -458,13 +462,9 @@ def _split_by_mix(
     for row in rows:
         subs = found_rows.get((row.packaging, row.n_dies))
         if subs:
-            filled = sorted((r for r in subs if r.design is not None), key=lambda r: -r.profit)
-            row = replace(
-                row,
-                mixes=filled + [r for r in subs if r.design is None],
-                mixes_omitted=omitted[(row.packaging, row.n_dies)],
-            )
-            top_mix = filled[0] if filled else None
+            subs = best_first(subs)
+            row = replace(row, mixes=subs, mixes_omitted=omitted[(row.packaging, row.n_dies)])
+            top_mix = subs[0] if subs[0].design is not None else None
             if top_mix is not None and top_mix.profit > row.profit + tie_tolerance(
                 row.design.revenue, row.design.revenue - row.profit
             ):

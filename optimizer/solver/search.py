@@ -100,7 +100,6 @@ def milp_search(
     architecture: tuple[int, int] | tuple[int, int, tuple[int, ...]] | None = None,
     candidates: dict[int, CandidateSet] | None = None,
     seed: dict[Selection, float] | None = None,
-    relaxations: dict | None = None,
 ) -> SearchOutcome:
     """Proven top-``top`` designs by integer programming with exact verification.
 
@@ -118,9 +117,7 @@ def milp_search(
     one process mix; ``candidates`` must then be pruned per process.
     ``candidates`` (from an earlier search of the same problem) skips the pricing of
     candidate dies, and ``seed`` (designs priced earlier, selection -> total cost) gives
-    the search its first incumbents. ``relaxations`` (a dict the caller keeps) shares
-    programs and their relaxations between searches of one candidate table: the
-    process-mix searches of one architecture relax the same program.
+    the search its first incumbents.
     """
     start = time.perf_counter()
     problem = evaluator.problem
@@ -293,11 +290,7 @@ def milp_search(
                     continue
         for n in counts:
             span = n_max if architecture is None else n
-            shared = relaxations.get((g, n, mix)) if relaxations is not None else None
-            if shared is not None:
-                columns = shared[0]
-            else:
-                columns = build_columns(evaluator, candidates[g], n, span=span, like=joint)
+            columns = build_columns(evaluator, candidates[g], n, span=span, like=joint)
             if columns is None:
                 continue
             if mix is not None:
@@ -320,7 +313,6 @@ def milp_search(
     # searched first, so that its designs tighten the threshold for the others.
     relaxed: list[tuple[float, Columns, RelaxedBound]] = []
     subs: list[SubProblem] = []
-    searched: set = set()
 
     def until(end: float) -> float:
         """Seconds to ``end`` (at least ROUND_FLOOR while time is left)."""
@@ -338,23 +330,14 @@ def milp_search(
             return max(ROUND_FLOOR, time.perf_counter() - start)
         return max(min(left, ROUND_FLOOR), left / max(parts, 1))
 
-    for cheap, columns, hint in programs:
+    for index, (cheap, columns, hint) in enumerate(programs):
         if not open_bound(cheap):
             continue
         if timed_out or out_of_time():
             timed_out = True
             unexplored.append(cheap)
             continue
-        rkey = (columns.packaging_index, columns.n_dies, mix)
-        shared = relaxations.get(rkey) if relaxations is not None else None
-        if shared is not None and shared[0] is columns:
-            bound = shared[1]
-        else:
-            limit = threshold()
-            bound = relax(columns, row_hint=hint, stop_above=limit, deadline=soft_deadline())
-            # only a relaxation solved to the end serves other searches
-            if relaxations is not None and math.isinf(limit) and not out_of_time():
-                relaxations[rkey] = (columns, bound)
+        bound = relax(columns, row_hint=hint, stop_above=threshold(), deadline=soft_deadline())
         columns.release_arrays()  # its integer program needs only the columns
         if not bound.feasible or not open_bound(bound.value):
             continue
@@ -375,7 +358,7 @@ def milp_search(
         order = np.argsort(np.where(usable, bound.reduced_cost, np.inf), kind="stable")
         basic = np.flatnonzero(~bound.at_zero)
         # this program's share of the time: its scouts and its first round
-        part = share(sum(1 for _, c, _ in programs if id(c) not in searched))
+        part = share(len(programs) - index)
         program_end = time.perf_counter() + part
         width = screen_columns
         while _screen(bound, usable, threshold()).size > screen_columns:
@@ -409,7 +392,6 @@ def milp_search(
         # under a time limit, a first round gets a share of it: one hard program must
         # not keep the others (and their designs) from being looked at
         solve_round(sub, until(program_end))
-        searched.add(id(columns))
         price(sub)
     log.append(f"{len(relaxed)} relaxations kept, {time.perf_counter() - start:.2f} s")
     while not timed_out:
