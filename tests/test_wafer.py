@@ -350,3 +350,150 @@ def test_square_sites_shortcut_equals_every_touching_pair(radius, side):
                 py = -vy / 2 + sign * vx / length * half
                 best = max(best, sites_at(px % side, py % side, radius, side, side))
     assert gross_dies_exact(radius, side, side) == best
+
+
+# --- many footprints: bisection along chains ------------------------------------------
+
+
+def one_at_a_time(radius, width, height):
+    """Reference: `gross_dies_exact` called on each footprint separately (no cache, no
+    bisection), after the same 1e-9 mm rounding as the vectorised front."""
+    r, w, h = np.broadcast_arrays(
+        *(np.round(np.asarray(x, dtype=float), 9) for x in (radius, width, height))
+    )
+    flat = [
+        gross_dies_exact(float(a), float(b), float(c))
+        for a, b, c in zip(r.ravel(), w.ravel(), h.ravel(), strict=True)
+    ]
+    return np.array(flat, dtype=np.int64).reshape(r.shape)
+
+
+def capped_chain(rng, n, short_mm, scribe_mm=0.1, area_range=(20.0, 800.0)):
+    """Footprints of dies of random area, square until the side reaches the reticle's
+    short side, then stretched: width = min(sqrt(A), short), height = A / width."""
+    area = rng.uniform(*area_range, n)
+    width = np.minimum(np.sqrt(area), short_mm)
+    return width + scribe_mm, area / width + scribe_mm
+
+
+@pytest.fixture
+def counted_rows(monkeypatch):
+    """Fresh cache, and a record of how many footprints the counting kernel saw."""
+    from optimizer.formulas import wafer
+
+    seen = []
+    kernel = wafer._count_footprints
+
+    def spy(keys):
+        seen.append(len(keys))
+        return kernel(keys)
+
+    wafer.clear_count_cache()
+    monkeypatch.setattr(wafer, "_count_footprints", spy)
+    yield seen
+    wafer.clear_count_cache()
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_exact_many_on_capped_chains_equals_one_at_a_time(seed, counted_rows):
+    # Reference: the per-footprint path. Dense chains (many footprints per count value)
+    # so that most footprints are filled in by bisection, not counted.
+    rng = np.random.default_rng(seed)
+    radius = rng.uniform(60.0, 147.0)
+    width, height = capped_chain(rng, 1500, short_mm=rng.uniform(12.0, 26.0))
+    swap = rng.random(width.size) < 0.5  # either orientation, in shuffled order
+    width, height = np.where(swap, height, width), np.where(swap, width, height)
+    many = gross_dies_exact_many(radius, width, height)
+    np.testing.assert_array_equal(many, one_at_a_time(radius, width, height))
+    assert sum(counted_rows) < 0.5 * width.size  # bisection did fill in
+
+
+def test_exact_many_on_a_long_chain_equals_per_footprint_path(counted_rows):
+    # Reference: the per-footprint path of the vectorised front (`bisect=False`, which
+    # counts every new footprint with the kernel), on a longer chain of 300 mm wafer dies.
+    from optimizer.formulas import wafer
+
+    rng = np.random.default_rng(7)
+    width, height = capped_chain(rng, 20_000, short_mm=26.0)
+    many = gross_dies_exact_many(147.0, width, height)
+    wafer.clear_count_cache()
+    reference = wafer._exact_many(147.0, width, height, bisect=False)
+    np.testing.assert_array_equal(many, reference)
+    assert np.all(np.diff(many[np.argsort(width + height)]) <= 0)  # one chain: monotone
+    assert sum(counted_rows) < 0.5 * width.size + 20_000  # the second call counts all
+
+
+@pytest.mark.parametrize("seed", [3, 4])
+def test_exact_many_on_non_chains_equals_one_at_a_time(seed, counted_rows):
+    # Reference: the per-footprint path. Random sides (mostly not comparable), a chain
+    # with random footprints mixed in, and two radii in one call.
+    rng = np.random.default_rng(seed)
+    scattered = rng.uniform(3.0, 40.0, size=(300, 2))
+    chain_w, chain_h = capped_chain(rng, 400, short_mm=18.0)
+    width = np.concatenate([scattered[:, 0], chain_w])
+    height = np.concatenate([scattered[:, 1], chain_h])
+    radius = np.where(rng.random(width.size) < 0.7, 147.0, 97.0)
+    many = gross_dies_exact_many(radius, width, height)
+    np.testing.assert_array_equal(many, one_at_a_time(radius, width, height))
+
+
+def test_exact_many_with_duplicates_and_partial_cache_equals_one_at_a_time(counted_rows):
+    # Reference: the per-footprint path. Repeated footprints, footprints equal after the
+    # 1e-9 mm rounding, swapped orientations, and a cache holding part of the chain.
+    rng = np.random.default_rng(5)
+    width, height = capped_chain(rng, 600, short_mm=20.0)
+    gross_dies_exact_many(147.0, width[::3], height[::3])  # some already cached
+    pick = rng.integers(0, width.size, 2000)
+    w, h = width[pick], height[pick]
+    w = np.where(rng.random(w.size) < 0.3, w + 2e-11, w)  # same key after rounding
+    swap = rng.random(w.size) < 0.5
+    w, h = np.where(swap, h, w), np.where(swap, w, h)
+    many = gross_dies_exact_many(147.0, w, h)
+    np.testing.assert_array_equal(many, one_at_a_time(147.0, w, h))
+    # a duplicate-only chain of one footprint value
+    np.testing.assert_array_equal(
+        gross_dies_exact_many(147.0, np.full(40, 10.08), np.full(40, 10.08)),
+        np.full(40, gross_dies_exact(147.0, 10.08, 10.08)),
+    )
+
+
+def test_chains_cover_every_row_once_in_chain_order():
+    # Definition of a chain (common practice): along it both sides are non-decreasing,
+    # within one radius; every row is on exactly one chain or left over. A chain with a
+    # few outliers mixed in must still be found for most of its rows.
+    from optimizer.formulas import wafer
+
+    rng = np.random.default_rng(6)
+    lo, hi = np.sort(rng.uniform(3.0, 40.0, size=(3000, 2)), axis=1).T
+    radius = np.where(np.arange(3000) < 5, 147.0, 97.0)  # 5 outliers on the chain's wafer
+    chain_w, chain_h = capped_chain(rng, 3000, short_mm=22.0)
+    keys, _ = wafer._unique_footprints(
+        np.concatenate([radius, np.full(3000, 147.0)]),
+        np.round(np.concatenate([lo, chain_w]), 9),
+        np.round(np.concatenate([hi, chain_h]), 9),
+    )
+    order, starts, stops = wafer._chains(keys)
+    assert np.array_equal(np.sort(order), np.arange(len(keys)))
+    for first, last in zip(starts, stops, strict=True):
+        chain = keys[order[first : last + 1]]
+        assert len(chain) >= wafer._MIN_CHAIN
+        assert np.all(chain[:, 0] == chain[0, 0])
+        assert np.all(np.diff(chain[:, 1]) >= 0) and np.all(np.diff(chain[:, 2]) >= 0)
+    on_big_wafer = keys[order[: stops[-1] + 1], 0] == 147.0
+    assert np.count_nonzero(on_big_wafer) >= 2900
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    radius=st.floats(5.0, 150.0),
+    width=st.floats(1.5, 60.0),
+    height=st.floats(1.5, 60.0),
+    shrink_w=st.floats(0.5, 1.0),
+    shrink_h=st.floats(0.5, 1.0),
+)
+def test_exact_count_is_monotone_in_the_footprint(radius, width, height, shrink_w, shrink_h):
+    # Our own argument, in the notes of wafer._count_by_bisection: scaling an optimal grid
+    # by diag(W'/W, H'/H) about the wafer centre moves no corner outward, so a smaller
+    # site never fits fewer whole sites. Checked here on the per-footprint count.
+    small = gross_dies_exact(radius, width * shrink_w, height * shrink_h)
+    assert small >= gross_dies_exact(radius, width, height)

@@ -13,6 +13,7 @@ a check; it ignores the die shape.
 
 from __future__ import annotations
 
+import itertools
 import math
 import os
 from concurrent.futures import ThreadPoolExecutor
@@ -37,6 +38,11 @@ _PARALLEL_MIN_STEPS = 2e6
 # Footprints are rounded to this grid before caching so that equal footprints computed
 # along different arithmetic paths share one entry.
 _CACHE_DECIMALS = 9
+
+# Rounds of chain peeling per radius, and the shortest chain worth bisecting; rows left
+# over are counted one by one (see `_chains`).
+_CHAIN_ROUNDS = 8
+_MIN_CHAIN = 16
 
 
 def usable_radius_mm(wafer_diameter_mm: float, edge_exclusion_mm: float) -> float:
@@ -231,6 +237,133 @@ def _unique_footprints(r: np.ndarray, lo: np.ndarray, hi: np.ndarray):
     return np.unique(np.stack([r, lo, hi], axis=1), axis=0, return_inverse=True)
 
 
+def _chains(keys: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Split footprint rows into chains for `_count_by_bisection`.
+
+    `keys` are distinct rows (radius, short side, long side) sorted lexicographically,
+    as `_unique_footprints` returns them. Within one radius the rows are in order of the
+    short side, so the rows whose long side reaches the running maximum form a chain:
+    both sides non-decreasing. Such chains are peeled off in up to `_CHAIN_ROUNDS`
+    rounds per radius; one shorter than `_MIN_CHAIN` is left over instead. Footprints
+    of one shape rule (the solver's dies of one process) form a single chain; rows left
+    over (general input) are still counted exactly, one by one.
+
+    Returns
+    -------
+    order : numpy.ndarray
+        Every row index once: the chains one after the other, each in chain order, then
+        the rows left over.
+    starts, stops : numpy.ndarray
+        Position in `order` of the first and of the last row of each chain.
+    """
+    chains, left = [], []
+    bounds = np.flatnonzero(np.diff(keys[:, 0])) + 1
+    for rest in np.split(np.arange(len(keys)), bounds):
+        for _ in range(_CHAIN_ROUNDS):
+            if not len(rest):
+                break
+            hi = keys[rest, 2]
+            on_chain = hi >= np.maximum.accumulate(hi)
+            (chains if np.count_nonzero(on_chain) >= _MIN_CHAIN else left).append(rest[on_chain])
+            rest = rest[~on_chain]
+        left.append(rest)
+    sizes = np.array([len(c) for c in chains], dtype=np.intp)
+    stops = np.cumsum(sizes) - 1
+    order = np.concatenate(chains + left) if len(keys) else np.empty(0, dtype=np.intp)
+    return order, stops - sizes + 1, stops
+
+
+def _count_by_bisection(keys: np.ndarray) -> np.ndarray:
+    """Exact counts of distinct footprint rows (radius, short side, long side), sorted
+    as `_unique_footprints` returns them; equal to `_count_footprints` of the same rows.
+
+    Notes
+    -----
+    Why it is exact: the exact count is non-increasing in each side of the site. Take an
+    optimal grid for a site ``W x H``; the circle is centred at the origin of the grid
+    coordinates (see `grid_search.sites_at`: a row's chord runs from ``-c`` to ``c``,
+    ``c = sqrt(R^2 - y^2)``). For ``W' <= W`` and ``H' <= H`` the linear map
+    ``(x, y) -> (a x, b y)``, ``a = W'/W <= 1``, ``b = H'/H <= 1``, maps that grid
+    (offset ``(x0, y0)``) onto a grid of ``W' x H'`` sites (offset ``(a x0, b y0)``) and
+    each site corner onto the matching corner of the smaller site. Since
+    ``(a x)^2 + (b y)^2 <= x^2 + y^2``, no corner moves away from the centre, so every
+    corner within the radius (plus clearance) stays within it: the smaller site fits at
+    least as many whole sites, ``count(W', H') >= count(W, H)``. This is our own
+    argument, not a citation.
+
+    Along a chain (radius fixed, short and long side both non-decreasing) the count is
+    therefore a non-increasing step function: where the two ends of a stretch of the
+    chain have equal counts, so does every footprint between them. Bisection counts the
+    ends of each chain, then the middle of every stretch whose ends differ, and fills
+    the stretches whose ends agree, level by level so that each level is one batched
+    call of `_count_footprints`. It counts each footprint at most once, and in all about
+    (distinct counts) x log2(chain length) of them instead of the whole chain. Decisions
+    use the rounded rows themselves, the very footprints that are counted.
+
+    The computed count lies between the counts for radius ``R`` (the touching search
+    is exact for it) and for ``R + 1e-9`` mm (the clearance against rounding), both
+    monotone by the argument above. They differ only within a relative ``1e-9 mm / R``
+    of a step, so a wrongly filled stretch would need two distinct rows of one chain
+    in one such window, the later counted higher. The tests and the benchmark compare
+    with the per-footprint path.
+    """
+    n = len(keys)
+    counts = np.full(n, -1, dtype=np.int64)
+    order, starts, stops = _chains(keys)
+    n_chained = int(stops[-1]) + 1 if len(stops) else 0
+
+    def count_at(pos: np.ndarray) -> None:
+        if len(pos):
+            counts[pos] = _count_footprints(keys[order[pos]])
+
+    # positions in `order`; the left-over rows are counted with the chain ends
+    count_at(np.concatenate([starts, stops, np.arange(n_chained, n)]))
+    lo, hi = starts, stops
+    while True:
+        split = (hi - lo >= 2) & (counts[lo] != counts[hi])
+        lo, hi = lo[split], hi[split]
+        if not len(lo):
+            break
+        mid = (lo + hi) // 2
+        count_at(mid)
+        lo, hi = np.concatenate([lo, mid]), np.concatenate([mid, hi])
+    # every position left is inside a stretch whose ends agree: copy the left end
+    known = np.where(counts[:n_chained] >= 0, np.arange(n_chained), 0)
+    counts[:n_chained] = counts[np.maximum.accumulate(known)]
+    out = np.empty(n, dtype=np.int64)
+    out[order] = counts
+    return out
+
+
+def _exact_many(usable_radius_mm, site_width_mm, site_height_mm, *, bisect: bool) -> np.ndarray:
+    """`gross_dies_exact_many`; ``bisect=False`` counts every new footprint on its own
+    (the reference path for tests and benchmarks)."""
+    r, w, h = np.broadcast_arrays(
+        np.asarray(usable_radius_mm, dtype=float),
+        np.asarray(site_width_mm, dtype=float),
+        np.asarray(site_height_mm, dtype=float),
+    )
+    if np.any(~(r >= 0)) or np.any(~(w > 0)) or np.any(~(h > 0)):
+        raise ValueError("usable radius must be >= 0 and site width and height > 0")
+    r = np.round(r, _CACHE_DECIMALS)
+    lo = np.round(np.minimum(w, h), _CACHE_DECIMALS)
+    hi = np.round(np.maximum(w, h), _CACHE_DECIMALS)
+    unique, inverse = _unique_footprints(r.ravel(), lo.ravel(), hi.ravel())
+    # zip of column lists builds the key tuples much faster than tuple() per row
+    tuples = list(zip(*(unique[:, i].tolist() for i in range(3)), strict=True))
+    counts = np.fromiter(
+        map(_COUNT_CACHE.get, tuples, itertools.repeat(-1)), dtype=np.int64, count=len(tuples)
+    )
+    new = np.flatnonzero(counts < 0)
+    if len(new):
+        # a subset of sorted distinct rows is still sorted and distinct
+        counted = (_count_by_bisection if bisect else _count_footprints)(unique[new])
+        counts[new] = counted
+        keys = map(tuples.__getitem__, new.tolist())
+        _COUNT_CACHE.update(zip(keys, counted.tolist(), strict=True))
+    return counts[np.asarray(inverse).ravel()].reshape(r.shape)
+
+
 def gross_dies_exact_many(usable_radius_mm, site_width_mm, site_height_mm) -> np.ndarray:
     """Vectorised `gross_dies_exact` over broadcast arrays of footprints.
 
@@ -252,27 +385,13 @@ def gross_dies_exact_many(usable_radius_mm, site_width_mm, site_height_mm) -> np
     -----
     Inputs are rounded to 1e-9 mm and width/height sorted (the count is unchanged by a
     quarter turn) before a cache lookup, so each distinct footprint is counted once, also
-    across calls. Many new footprints are counted on several threads (environment
-    variable DIEPLAN_COUNT_WORKERS, default the CPU count).
+    across calls. New footprints are counted by bisection along chains of growing
+    footprints, where the count is a non-increasing step function (see
+    `_count_by_bisection`); the footprints actually counted go on several threads when
+    there is enough work (environment variable DIEPLAN_COUNT_WORKERS, default the CPU
+    count).
     """
-    r, w, h = np.broadcast_arrays(
-        np.asarray(usable_radius_mm, dtype=float),
-        np.asarray(site_width_mm, dtype=float),
-        np.asarray(site_height_mm, dtype=float),
-    )
-    if np.any(~(r >= 0)) or np.any(~(w > 0)) or np.any(~(h > 0)):
-        raise ValueError("usable radius must be >= 0 and site width and height > 0")
-    r = np.round(r, _CACHE_DECIMALS)
-    lo = np.round(np.minimum(w, h), _CACHE_DECIMALS)
-    hi = np.round(np.maximum(w, h), _CACHE_DECIMALS)
-    unique, inverse = _unique_footprints(r.ravel(), lo.ravel(), hi.ravel())
-    tuples = list(map(tuple, unique.tolist()))
-    new = [i for i, key in enumerate(tuples) if key not in _COUNT_CACHE]
-    if new:
-        counted = _count_footprints(unique[new]).tolist()
-        _COUNT_CACHE.update(zip((tuples[i] for i in new), counted, strict=True))
-    counts = np.array([_COUNT_CACHE[key] for key in tuples], dtype=np.int64)
-    return counts[np.asarray(inverse).ravel()].reshape(r.shape)
+    return _exact_many(usable_radius_mm, site_width_mm, site_height_mm, bisect=True)
 
 
 def wafer_map(usable_radius_mm: float, site_width_mm: float, site_height_mm: float) -> np.ndarray:

@@ -53,6 +53,31 @@ class CandidateSet:
         )
 
 
+def join_candidates(first: CandidateSet, second: CandidateSet) -> CandidateSet:
+    """``first`` followed by ``second`` (indices into ``first`` stay valid)."""
+
+    def both(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+        return np.concatenate([a, b.astype(a.dtype, copy=False)])
+
+    prices = DiePrices(
+        **{
+            name: both(getattr(first.prices, name), getattr(second.prices, name))
+            for name in DiePrices.__dataclass_fields__
+        }
+    )
+    return CandidateSet(
+        packaging_index=first.packaging_index,
+        process=both(first.process, second.process),
+        instances=both(first.instances, second.instances),
+        spares=both(first.spares, second.spares),
+        repairs=both(first.repairs, second.repairs),
+        prices=prices,
+        max_copies=both(first.max_copies, second.max_copies),
+        level=both(first.level, second.level),
+        critical_option=both(first.critical_option, second.critical_option),
+    )
+
+
 def enumerate_contents(evaluator: Evaluator, max_area_mm2: float | None = None) -> np.ndarray:
     """All block-instance vectors a single die could carry (C x B), smallest area first.
 

@@ -217,6 +217,7 @@ def build_columns(
     n_dies_max: int | None = None,
     span: int | None = None,
     like: Columns | None = None,
+    floors: tuple[float, float, float] | None = None,
 ) -> Columns | None:
     """Arrays of the lower-bounding program for one packaging option and die count.
 
@@ -231,6 +232,12 @@ def build_columns(
     column by column and one program's duals give a bound of another (`dual_bound`).
     ``like``, a program of the same candidates and span, lends its columns, rows and
     constraint matrix, so that only the objective is computed again.
+
+    The coefficients assume the cheapest die, the least test escape and the largest die
+    among ``candidates``. When the program must also bound designs of dies not among
+    them (candidates generated on demand), ``floors`` gives those three over every die
+    that could exist: (least cost per passed die, least -ln(1 - defect level), largest
+    die area [mm^2]).
     """
     n_most = n_dies if n_dies_max is None else max(n_dies, n_dies_max)
     span = max(n_most, span or 0)
@@ -251,7 +258,9 @@ def build_columns(
     if like is not None and like.span == span and like.packaging_index == g:
         shape = like.shape
     else:
-        shape = _column_shape(evaluator, candidates, cand, span, area_lo)
+        shape = _column_shape(
+            evaluator, candidates, cand, span, area_lo, None if floors is None else floors[2]
+        )
         if shape is None:
             return None
     col_c, col_k = shape.col_c, shape.col_k
@@ -269,7 +278,7 @@ def build_columns(
     k_c = prices.cost_per_passed_die[col_c]
     ell = prices.log1m_defect_level[col_c]
     # N >= this column's own dies + the cheapest possible others + fixed + carrier floor
-    cheapest = float(prices.cost_per_passed_die[cand].min())
+    cheapest = float(prices.cost_per_passed_die[cand].min()) if floors is None else floors[0]
     others = np.maximum(n_dies - col_k, 0)
     n_lo = col_k * k_c + others * cheapest + fixed + carrier_floor
     # Test escapes: with t_i = -k ln(1 - DL) >= 0 per column and t their sum,
@@ -277,7 +286,10 @@ def build_columns(
     # selection holding column i has t >= tau_i = t_i + (its other dies' least escape),
     # so N (e^t - 1) >= sum_i n_lo_i t_i phi(tau_i): tight when the other dies escape least.
     t_col = -col_k * ell
-    tau = t_col + others * float(-prices.log1m_defect_level[cand].max())
+    least_escape = (
+        float(-prices.log1m_defect_level[cand].max()) if floors is None else floors[1]
+    )
+    tau = t_col + others * least_escape
     cost = factor * (col_k * k_c + n_lo * t_col * _expm1_ratio(tau)) + prices.nre[col_c]
     constant = factor * fixed + packaging.design_cost
     if shape.carrier_slopes is None:
@@ -305,7 +317,12 @@ def _expm1_ratio(x: np.ndarray) -> np.ndarray:
 
 
 def _column_shape(
-    evaluator: Evaluator, candidates: CandidateSet, cand: np.ndarray, span: int, area_lo: float
+    evaluator: Evaluator,
+    candidates: CandidateSet,
+    cand: np.ndarray,
+    span: int,
+    area_lo: float,
+    largest_die: float | None = None,
 ) -> ColumnShape | None:
     """Columns, coverage and carrier rows for up to ``span`` copies of candidates ``cand``."""
     problem = evaluator.problem
@@ -326,7 +343,8 @@ def _column_shape(
         area_cap = (
             packaging.interposer_max_area_mm2 - packaging.interposer_extra_area_mm2
         ) / packaging.interposer_area_factor
-        area_hi = min(area_cap, float(span * prices.area_mm2[cand].max()))
+        largest = float(prices.area_mm2[cand].max()) if largest_die is None else largest_die
+        area_hi = min(area_cap, span * largest)
         if area_hi < area_lo:
             return None
         slopes, intercepts = carrier_underestimator(evaluator, packaging, area_lo, area_hi)
@@ -594,6 +612,7 @@ def relax(
     row_hint: np.ndarray | None = None,
     stop_above: float = math.inf,
     deadline: float | None = None,
+    incomplete: bool = False,
 ) -> RelaxedBound:
     """Solve the linear relaxation with HiGHS directly on the arrays.
 
@@ -611,7 +630,10 @@ def relax(
     n_var = program.cost.size
     extra = np.arange(n, n_var)  # target and carrier variables stay in every program
     usable = np.flatnonzero(columns.usable)
-    generate = usable.size > _GENERATE_ABOVE
+    # ``incomplete`` columns may not cover every block yet (candidate dies are
+    # generated on demand): the artificial columns keep the program feasible and its
+    # duals meaningful
+    generate = usable.size > _GENERATE_ABOVE or incomplete
     if generate:
         chosen = np.r_[_first_columns(columns, program, usable, row_hint), extra]
     else:
@@ -671,6 +693,8 @@ def relax(
                 break
             missing = usable[~in_program[usable]]
             if missing.size == 0:  # every column present and still no cover: infeasible
+                if incomplete:
+                    break  # unless more columns are to come: their search needs the duals
                 return RelaxedBound(math.inf, np.zeros(n), np.ones(n, dtype=bool), False)
             pricing = missing
         best = pricing[_cheapest(reduced_all[pricing], _ADD_COLUMNS)]
@@ -777,6 +801,7 @@ class SubProblem:
     seconds: float = 0.0
     cuts: int = 0
     stalls: int = 0  # rounds that ran out of time without a design
+    cutoff: float = math.inf  # money: selections bounded above this are not looked for
     log: list[str] = field(default_factory=list)
 
     @property
@@ -790,6 +815,18 @@ class SubProblem:
     def set_gap(self, rel_gap: float) -> None:
         """Stop at this relative gap (a scout needs an incumbent, not a proof)."""
         self.solver.setOptionValue("mip_rel_gap", float(rel_gap))
+
+    def set_cutoff(self, total_cost: float) -> None:
+        """Look only for selections whose bound is at most ``total_cost`` (money).
+
+        A program with none left there is closed for the search: its selections cannot
+        beat the designs that set the cut-off. HiGHS prunes every node above it, which
+        makes the proving rounds far shorter than a search for the plain optimum.
+        """
+        self.cutoff = float(total_cost)
+        self.solver.setOptionValue(
+            "objective_bound", self.cutoff / self.scale if math.isfinite(self.cutoff) else math.inf
+        )
 
 
 def program_rows(
@@ -966,10 +1003,14 @@ def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
     sub.rounds += 1
     sub.seconds += time.perf_counter() - start
     if status == highspy.HighsModelStatus.kInfeasible:
+        # with a cut-off: none left at or below it (its bound is the cut-off)
         sub.exhausted = True
-        sub.bound = math.inf
+        sub.bound = max(sub.bound, sub.cutoff)
         sub.current = None
-        sub.log.append(f"round {sub.rounds}: no selection left")
+        sub.log.append(
+            f"round {sub.rounds}: no selection left"
+            + ("" if math.isinf(sub.cutoff) else f" at or below {sub.cutoff:.8g}")
+        )
         return
     info = h.getInfo()
     if status not in _ERRORS:
@@ -977,7 +1018,9 @@ def solve_round(sub: SubProblem, time_limit: float | None = None) -> None:
         if bound is not None and math.isfinite(bound):
             # trusted only to the solver's precision (see SOLVER_RTOL)
             value = float(bound) * sub.scale
-            sub.bound = max(sub.bound, value - SOLVER_RTOL * abs(value))
+            # nodes pruned by the cut-off hold only selections above it
+            value = min(value - SOLVER_RTOL * abs(value), sub.cutoff)
+            sub.bound = max(sub.bound, value)
     feasible = status not in _ERRORS and info.primal_solution_status == 2
     if not feasible:
         sub.current = None

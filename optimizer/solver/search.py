@@ -54,6 +54,9 @@ SCOUT_GAP = 1e-3
 ROUND_FLOOR = 1.0
 # a scouting program left with no design has this many times more columns next time
 SCOUT_WIDEN = 4
+# integer programs skip selections bounded above the threshold by more than this share
+# of it (well above HiGHS's tolerances, so that no selection that could rank is skipped)
+CUTOFF_RTOL = 1e-7
 
 
 def tie_tolerance(revenue: float, threshold_cost: float) -> float:
@@ -244,6 +247,14 @@ def milp_search(
     def threshold() -> float:
         return _kth(list(exact.values()), top)
 
+    def cutoff() -> float:
+        """Money above which a program's selections need not be looked for: the
+        threshold, with room for the solver's tolerances (a wider cut-off is safe)."""
+        limit = threshold()
+        if not math.isfinite(limit):
+            return math.inf
+        return limit + tie_tolerance(revenue, limit) + CUTOFF_RTOL * abs(limit)
+
     def open_bound(value: float) -> bool:
         limit = threshold()
         return value < limit - tie_tolerance(revenue, limit)
@@ -375,6 +386,7 @@ def milp_search(
             # the scout is for incumbents only: its bound is not used, so a loose gap
             scout.set_gap(SCOUT_GAP)
             for _ in range(top):
+                scout.set_cutoff(cutoff())
                 solve_round(scout, until(program_end))
                 price(scout)
                 if scout.current is None or out_of_time():
@@ -391,6 +403,7 @@ def milp_search(
         subs.append(sub)
         # under a time limit, a first round gets a share of it: one hard program must
         # not keep the others (and their designs) from being looked at
+        sub.set_cutoff(cutoff())
         solve_round(sub, until(program_end))
         price(sub)
     log.append(f"{len(relaxed)} relaxations kept, {time.perf_counter() - start:.2f} s")
@@ -415,6 +428,7 @@ def milp_search(
                 sub.exhausted, sub.bound, sub.current = True, math.inf, None
                 sub.log.append(f"closed by pricing all {count} of its designs")
                 continue
+        sub.set_cutoff(cutoff())
         solve_round(sub, share(len(open_subs)))
         price(sub)
     if timed_out and not any(math.isfinite(v) for v in exact.values()):
@@ -433,6 +447,7 @@ def milp_search(
             order = np.argsort(bound.reduced_cost, kind="stable")
             few = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
             scout = build_subproblem(columns, few, mix, process_of)
+            scout.set_cutoff(cutoff())
             solve_round(scout, remaining())
             price(scout)
             if any(math.isfinite(v) for v in exact.values()):
