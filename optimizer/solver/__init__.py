@@ -10,6 +10,8 @@ import math
 import time
 from dataclasses import dataclass, field
 
+import numpy as np
+
 from optimizer.designs import DesignResult, evaluate_specs
 from optimizer.evaluator import COST_COMPONENTS, Evaluator
 from optimizer.problem import Problem, ProblemError, Requirements
@@ -37,6 +39,17 @@ def choose_method(problem: Problem) -> str:
     (it proves the many-near-ties problems the integer programs find hardest), else the
     integer-programming search."""
     return "subset_dp" if applicability(problem) is None else "milp"
+
+
+# above this many block contents (before the area limit) candidate dies are generated on
+# demand rather than all priced up front (at 22 single blocks: 4.2 million contents)
+GENERATE_ABOVE_CONTENTS = 2**22
+
+
+def too_many_contents(evaluator: Evaluator) -> bool:
+    """Whether pricing every content a die could hold would not fit time and memory."""
+    contents = float(np.prod(evaluator.blocks.count.astype(float) + 1))
+    return contents > GENERATE_ABOVE_CONTENTS
 
 
 @dataclass(frozen=True)
@@ -152,8 +165,14 @@ def solve(
     evaluator = Evaluator(problem)
     if method == "auto":
         method = choose_method(problem)
-    if method == "milp":
-        outcome: SearchOutcome = milp_search(
+    if method == "milp" and too_many_contents(evaluator):
+        from optimizer.solver.generation import generated_search
+
+        outcome: SearchOutcome = generated_search(
+            evaluator, top=top, deadline=deadline, requirements=requirements
+        )
+    elif method == "milp":
+        outcome = milp_search(
             evaluator,
             top=top,
             deadline=deadline,
@@ -177,6 +196,16 @@ def solve(
                 raise ProblemError(source, "requirements", reason)
         if outcome.proven:
             raise ProblemError(source, "constraints", explain_infeasible(evaluator))
+        if outcome.stats.get("contents_generated") is not None and not outcome.stats.get(
+            "timed_out"
+        ):
+            raise ProblemError(
+                source,
+                "constraints",
+                "no admissible design among the candidate dies generated for this large "
+                "problem (not a proof that none exists); "
+                + explain_infeasible(evaluator),
+            )
         raise ProblemError(
             source,
             "--time-limit",

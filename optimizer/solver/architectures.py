@@ -159,6 +159,23 @@ def empty_reason(evaluator: Evaluator, g: int, n: int, need: Requirements) -> st
     return text
 
 
+def _generated(outcome: SearchOutcome) -> bool:
+    """Whether the optimum's candidate dies were generated on demand (not all known)."""
+    return "contents_generated" in outcome.stats
+
+
+def _row_search(evaluator: Evaluator, outcome: SearchOutcome, **kwargs) -> SearchOutcome:
+    """One row's search: over the optimum's candidate dies, or, when those were
+    generated on demand, generating more for the row's own proof (its seed then only
+    the optimum's designs, whose indices every row's candidates share)."""
+    if not _generated(outcome):
+        return milp_search(evaluator, **kwargs)
+    from optimizer.solver.generation import generated_search
+
+    kwargs["seed"] = outcome.priced
+    return generated_search(evaluator, **kwargs)
+
+
 def decision_table(
     evaluator: Evaluator,
     outcome: SearchOutcome,
@@ -210,8 +227,9 @@ def decision_table(
             # both keep the best design of every architecture they priced, proven
             found = _from_exhaustive(outcome, g, n, revenue)
         else:
-            found = milp_search(
+            found = _row_search(
                 evaluator,
+                outcome,
                 top=1,
                 deadline=_share(rows_deadline, len(pairs) - index, ROW_FLOOR),
                 requirements=need,
@@ -220,12 +238,21 @@ def decision_table(
                 seed=seed,
             )
             seed.update(found.priced)
-        rows.append(_row_of(evaluator, found, outcome.candidates[g], g, n, optimum, need, source))
+        rows.append(_row_of(evaluator, found, found.candidates[g], g, n, optimum, need, source))
     _check_table(rows, optimum, optimum_proven, revenue)
     rows = best_first(rows)
     if splitting:
         rows = _split_by_mix(
-            evaluator, rows, split, optimum, optimum_proven, need, source, deadline, seed
+            evaluator,
+            rows,
+            split,
+            optimum,
+            optimum_proven,
+            need,
+            source,
+            deadline,
+            seed,
+            generated=_generated(outcome),
         )
     if deadline is not None and outcome.method not in ("exhaustive", "subset_dp"):
         rows = _second_pass(evaluator, outcome, rows, optimum, need, source, deadline, seed)
@@ -259,8 +286,9 @@ def _second_pass(
             break
         row = rows[i]
         g = problem.packaging_index(row.packaging)
-        found = milp_search(
+        found = _row_search(
             evaluator,
+            outcome,
             top=1,
             deadline=_share(deadline, len(redo) - done),
             requirements=need,
@@ -269,9 +297,7 @@ def _second_pass(
             seed=seed,
         )
         seed.update(found.priced)
-        again = _row_of(
-            evaluator, found, outcome.candidates[g], g, row.n_dies, optimum, need, source
-        )
+        again = _row_of(evaluator, found, found.candidates[g], g, row.n_dies, optimum, need, source)
         better = again.design is not None and (row.design is None or again.profit > row.profit)
         if again.proven or better or again.profit_bound < row.profit_bound:
             rows[i] = replace(again, mixes=row.mixes, mixes_omitted=row.mixes_omitted)
@@ -403,9 +429,10 @@ def _split_by_mix(
     source: str,
     deadline: float | None,
     seed: dict,
+    generated: bool = False,
 ) -> list[ArchitectureRow]:
     """The optimum's and the ``split`` best multi-die architectures, with one sub-row
-    per process mix."""
+    per process mix (with ``generated``, each mix generates its own candidate dies)."""
     problem = evaluator.problem
     index = {p.name: i for i, p in enumerate(problem.process)}
     # the optimum's row and the best multi-die rows: mixes matter most for chiplets
@@ -431,6 +458,21 @@ def _split_by_mix(
             # the row's own best has this mix: it is the mix's best too
             sub = replace(row, mix=text, mixes=[])
         else:
+            if generated:
+                from optimizer.solver.generation import generated_search
+
+                # the mix's own generated search: per-process pruning of its dies
+                found = generated_search(
+                    evaluator,
+                    top=1,
+                    deadline=_share(deadline, len(jobs) - done, MIX_FLOOR),
+                    requirements=need,
+                    architecture=(g, row.n_dies, counts),
+                )
+                cset = found.candidates[g]
+                sub = _row_of(evaluator, found, cset, g, row.n_dies, optimum, need, source, text)
+                found_rows.setdefault((row.packaging, row.n_dies), []).append(sub)
+                continue
             try:
                 if g not in candidates:
                     candidates[g] = build_candidates(

@@ -78,6 +78,22 @@ def join_candidates(first: CandidateSet, second: CandidateSet) -> CandidateSet:
     )
 
 
+def keep_rules_hold(evaluator: Evaluator, contents: np.ndarray) -> np.ndarray:
+    """Mask of contents (C x B) that the keep-together and keep-apart rules allow."""
+    problem = evaluator.problem
+    blocks = evaluator.blocks
+    index = {name: i for i, name in enumerate(blocks.names)}
+    ok = np.ones(len(contents), dtype=bool)
+    share = contents / blocks.count[None, :]
+    for group in problem.constraints.keep_together:
+        cols = [index[name] for name in group]
+        ok &= np.all(np.isclose(share[:, cols], share[:, cols[:1]]), axis=1)
+    for group in problem.constraints.keep_apart:
+        cols = [index[name] for name in group]
+        ok &= (contents[:, cols] > 0).sum(axis=1) <= 1
+    return ok
+
+
 def enumerate_contents(evaluator: Evaluator, max_area_mm2: float | None = None) -> np.ndarray:
     """All block-instance vectors a single die could carry (C x B), smallest area first.
 
@@ -103,15 +119,7 @@ def enumerate_contents(evaluator: Evaluator, max_area_mm2: float | None = None) 
         contents, area = contents[keep], area[keep]
     nonempty = contents.sum(axis=1) > 0
     contents, area = contents[nonempty], area[nonempty]
-    index = {name: i for i, name in enumerate(blocks.names)}
-    ok = np.ones(len(contents), dtype=bool)
-    share = contents / blocks.count[None, :]
-    for group in problem.constraints.keep_together:
-        cols = [index[name] for name in group]
-        ok &= np.all(np.isclose(share[:, cols], share[:, cols[:1]]), axis=1)
-    for group in problem.constraints.keep_apart:
-        cols = [index[name] for name in group]
-        ok &= (contents[:, cols] > 0).sum(axis=1) <= 1
+    ok = keep_rules_hold(evaluator, contents)
     order = np.argsort(area[ok], kind="stable")
     return contents[ok][order]
 

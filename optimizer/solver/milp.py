@@ -159,6 +159,9 @@ class Columns:
     like: Columns | None = field(default=None, repr=False)  # lends its constraint matrix
     # (dies per process, process of each candidate): hold the relaxation to a process mix
     mix: tuple[tuple[int, ...], np.ndarray] | None = field(default=None, repr=False)
+    # (per candidate) dies of which a selection must hold at least one: the designs of
+    # the others were searched before
+    require: np.ndarray | None = field(default=None, repr=False)
 
     def __getattr__(self, name: str):
         # the shared arrays read as the program's own (columns.col_c, columns.cover, ...)
@@ -286,9 +289,7 @@ def build_columns(
     # selection holding column i has t >= tau_i = t_i + (its other dies' least escape),
     # so N (e^t - 1) >= sum_i n_lo_i t_i phi(tau_i): tight when the other dies escape least.
     t_col = -col_k * ell
-    least_escape = (
-        float(-prices.log1m_defect_level[cand].max()) if floors is None else floors[1]
-    )
+    least_escape = float(-prices.log1m_defect_level[cand].max()) if floors is None else floors[1]
     tau = t_col + others * least_escape
     cost = factor * (col_k * k_c + n_lo * t_col * _expm1_ratio(tau)) + prices.nre[col_c]
     constant = factor * fixed + packaging.design_cost
@@ -481,7 +482,7 @@ def _linear_program(columns: Columns) -> _LinearProgram:
     n_y = columns.n_targets
     fewest, most = columns.die_counts
     like = columns.like
-    if like is not None and n_y == 0:
+    if like is not None and n_y == 0 and columns.require is None:
         # the same rows and columns: only the die-count row, bounds and costs differ
         lent = like.linear_program
         count_row = columns.cover.shape[0]
@@ -539,6 +540,11 @@ def _linear_program(columns: Columns) -> _LinearProgram:
         lower += [np.array([-np.inf]), columns.carrier_intercepts]
         upper += [np.array([columns.area_cap]), np.full(len(columns.carrier_slopes), np.inf)]
     n_var = n + n_y + (1 if interposer else 0)
+    if columns.require is not None:
+        held = columns.require[columns.col_c].astype(float)
+        a = sp.vstack([a, sp.csr_matrix(np.r_[held, np.zeros(n_var - n)][None, :])])
+        lower.append(np.ones(1))
+        upper.append(np.full(1, np.inf))
     if columns.mix is not None:
         counts, process = columns.mix
         on = process[columns.col_c]
@@ -647,9 +653,12 @@ def relax(
         # one artificial per coverage row, the die-count row and any process-mix row
         # (the last rows), dearer than any design
         at = np.arange(columns.cover.shape[0] + 1, dtype=np.int32)
-        if columns.mix is not None:
-            total = program.row_lower.size
-            at = np.r_[at, np.arange(total - len(columns.mix[0]), total, dtype=np.int32)]
+        total = program.row_lower.size
+        mixed = 0 if columns.mix is None else len(columns.mix[0])
+        if columns.require is not None:
+            at = np.r_[at, np.array([total - mixed - 1], dtype=np.int32)]
+        if mixed:
+            at = np.r_[at, np.arange(total - mixed, total, dtype=np.int32)]
         rows = at.size
         big = 100.0 * float(np.abs(program.cost).max() + 1.0) / scale
         h.addCols(
@@ -870,6 +879,8 @@ def program_rows(
         for p, dies in enumerate(mix):
             # a process without a kept column gives an empty row: infeasible if dies > 0
             add(np.where(on == p, col_k, 0.0)[None, :], dies, dies)
+    if columns.require is not None:
+        add(columns.require[columns.col_c[keep]].astype(float)[None, :], 1.0, np.inf)
     groups = columns.once_groups[keep]
     _, inverse, sizes = np.unique(groups, return_inverse=True, return_counts=True)
     multi = np.flatnonzero(sizes[inverse] > 1)

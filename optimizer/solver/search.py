@@ -103,6 +103,7 @@ def milp_search(
     architecture: tuple[int, int] | tuple[int, int, tuple[int, ...]] | None = None,
     candidates: dict[int, CandidateSet] | None = None,
     seed: dict[Selection, float] | None = None,
+    require: dict[int, np.ndarray] | None = None,
 ) -> SearchOutcome:
     """Proven top-``top`` designs by integer programming with exact verification.
 
@@ -120,7 +121,9 @@ def milp_search(
     one process mix; ``candidates`` must then be pruned per process.
     ``candidates`` (from an earlier search of the same problem) skips the pricing of
     candidate dies, and ``seed`` (designs priced earlier, selection -> total cost) gives
-    the search its first incumbents.
+    the search its first incumbents. With ``require`` (per packaging, a mask over its
+    candidates) only designs holding at least one of those dies are searched, the
+    others having been searched before (the proof covers both together).
     """
     start = time.perf_counter()
     problem = evaluator.problem
@@ -287,10 +290,14 @@ def milp_search(
         counts = range(2, n_max + 1)
         if architecture is not None:
             counts = [n for n in counts if (g, n) == architecture]
+        if require is not None and not require[g].any():
+            continue  # every design of this packaging was searched before
         n_programs += len(counts)
         joint_bound = joint = None
         if n_max > 2 and architecture is None:
             joint = build_columns(evaluator, candidates[g], 2, n_max)
+            if joint is not None and require is not None:
+                joint.require = require[g]
             if joint is None or not open_bound(joint.quick_bound()):
                 continue
             # out of time, the die counts are listed below and left unexplored
@@ -304,6 +311,8 @@ def milp_search(
             columns = build_columns(evaluator, candidates[g], n, span=span, like=joint)
             if columns is None:
                 continue
+            if require is not None:
+                columns.require = require[g]
             if mix is not None:
                 on = process_of[columns.col_c[columns.usable]]
                 if any(dies and not np.any(on == p) for p, dies in enumerate(mix)):
