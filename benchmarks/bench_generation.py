@@ -55,9 +55,7 @@ print(json.dumps({{
 
 
 def run(size: int, method: str, limit: float, favoured: bool) -> dict:
-    code = CHILD.format(
-        here=str(HERE), size=size, method=method, limit=limit, favoured=favoured
-    )
+    code = CHILD.format(here=str(HERE), size=size, method=method, limit=limit, favoured=favoured)
     done = subprocess.run(
         [sys.executable, "-c", code], capture_output=True, text=True, timeout=limit + 600
     )

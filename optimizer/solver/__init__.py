@@ -203,8 +203,7 @@ def solve(
                 source,
                 "constraints",
                 "no admissible design among the candidate dies generated for this large "
-                "problem (not a proof that none exists); "
-                + explain_infeasible(evaluator),
+                "problem (not a proof that none exists); " + explain_infeasible(evaluator),
             )
         raise ProblemError(
             source,
