@@ -34,6 +34,7 @@ import numpy as np
 
 from optimizer.evaluator import MM2_PER_CM2, Evaluator, die_shape_mm, gross_dies
 from optimizer.formulas import defect_mixture, parametric
+from optimizer.invariants import InvariantViolation
 
 # areas are tabulated on this many steps between the smallest block and the largest die
 TABLE_STEPS = 4096
@@ -216,7 +217,7 @@ class CostFloor:
             low |= prices.nre[rows] < self.nre(p, area) * (1 - 1e-9) - 1e-9
             if low.any():
                 i = int(rows[np.flatnonzero(low)[0]])
-                raise AssertionError(
+                raise InvariantViolation(
                     f"die priced below its cost floor (process {p}, content "
                     f"{instances[i].tolist()}): {prices.cost_per_passed_die[i]!r} < "
                     f"{float(floor[np.flatnonzero(low)[0]])!r}"
