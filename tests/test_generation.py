@@ -498,3 +498,19 @@ def test_search_split_by_required_dies_equals_the_whole_search(case):
     assert len(got) == len(expected)
     for a, b in zip(got, expected, strict=True):
         assert a == pytest.approx(b, rel=RTOL), (case, got, expected)
+
+
+def test_a_die_priced_below_its_floor_stops_the_search():
+    """The floor check is live: a die whose exact cost were below its floor (a defect
+    that would make the generation miss columns) raises rather than passes."""
+    from optimizer.invariants import InvariantViolation
+
+    evaluator = Evaluator(parse_problem(random_problem(2, blocks=4)))
+    floor = CostFloor(evaluator)
+    cset = build_candidates(evaluator, 0, enumerate_contents(evaluator), prune=False)
+    floor.check(cset.process, cset.instances, cset.prices)  # the true prices pass
+    cheap = dataclasses.replace(
+        cset.prices, cost_per_passed_die=cset.prices.cost_per_passed_die * 0.5
+    )
+    with pytest.raises(InvariantViolation, match="below its cost floor"):
+        floor.check(cset.process, cset.instances, cheap)
