@@ -24,6 +24,7 @@ from optimizer.solver.candidates import (
     enumerate_contents,
 )
 from optimizer.solver.milp import (
+    PRESOLVE_MAX_COLUMNS,
     Columns,
     RelaxedBound,
     SubProblem,
@@ -57,6 +58,22 @@ SCOUT_WIDEN = 4
 # integer programs skip selections bounded above the threshold by more than this share
 # of it (well above HiGHS's tolerances, so that no selection that could rank is skipped)
 CUTOFF_RTOL = 1e-7
+# Incumbents from the subset DP before the first program (problems whose blocks all have
+# count 1): the integer programs of near-tied designs can take minutes to find a first
+# good design, the DP well under a second. Off only to measure what it brings.
+DP_SEEDING = True
+# under a time limit, the seeding DP may take at most this share of the time left
+SEED_SHARE = 0.5
+# HiGHS presolve rules (bits of its option presolve_rule_off) that do not stop at the
+# time limit: rule 16 spent 1.9 s on a 3,200-column two-die program of the tie family
+# whatever the limit (0.05 s or 1 s); switched off under a time limit only
+SLOW_PRESOLVE_RULES = 1 << 16
+# Nor does HiGHS stop inside some phases of a program too large for presolve: its
+# feasibility-jump heuristic ran 90 s past a 1 s limit on a 262,143-column program (6 s
+# on a 65,535-column one); without it, the root's first LP and cut round still ran up
+# to 8 s past. Under a time limit such a program gets no feasibility jump, and a round
+# only while this many seconds per column are left (measured: 2 to 3e-5).
+LARGE_ROUND_SECONDS_PER_COLUMN = 5e-5
 
 
 def tie_tolerance(revenue: float, threshold_cost: float) -> float:
@@ -243,6 +260,22 @@ def milp_search(
                 exact.setdefault(sel, total)
         return count
 
+    def program(columns: Columns, keep: np.ndarray) -> SubProblem:
+        sub = build_subproblem(columns, keep, mix, process_of)
+        if deadline is not None:
+            sub.solver.setOptionValue("presolve_rule_off", SLOW_PRESOLVE_RULES)
+            if sub.keep.size > PRESOLVE_MAX_COLUMNS:
+                sub.solver.setOptionValue("mip_heuristic_run_feasibility_jump", False)
+        return sub
+
+    def room(sub: SubProblem) -> bool:
+        """Whether a round of ``sub`` can end by the deadline (a large program's round
+        runs past its own time limit: see LARGE_ROUND_SECONDS_PER_COLUMN)."""
+        left = budget()
+        if left is None or sub.keep.size <= PRESOLVE_MAX_COLUMNS:
+            return True
+        return left >= LARGE_ROUND_SECONDS_PER_COLUMN * sub.keep.size
+
     def budget() -> float | None:
         soft = soft_deadline()
         return None if soft is None else soft - time.perf_counter()
@@ -274,6 +307,15 @@ def milp_search(
             prices = price_selections(evaluator, cset, sels)
             for sel, profit in zip(sels, prices.profit, strict=True):
                 exact[sel] = float(revenue - profit)
+
+    # an architecture's search seeded with the designs of an earlier search (the
+    # decision table) already holds that search's DP designs
+    seeded = architecture is not None and any(
+        math.isfinite(total) and sel.n_dies > 1 and in_scope(sel)
+        for sel, total in (seed or {}).items()
+    )
+    if DP_SEEDING and not pricing_cut and require is None and mix is None and not seeded:
+        _add_dp_seeds(evaluator, candidates, top, deadline, architecture, in_scope, exact, log)
 
     timed_out = pricing_cut
     # packagings whose candidates were not all priced: nothing is known of them
@@ -307,6 +349,14 @@ def milp_search(
                     log.append(f"packaging {packaging.name}: 2 to {n_max} dies closed together")
                     continue
         for n in counts:
+            if deadline is not None and time.perf_counter() > deadline:
+                # no time to build the others: the joint program bounds them all
+                timed_out = True
+                floor = -math.inf if joint is None else joint.quick_bound()
+                if joint_bound is not None:
+                    floor = max(floor, joint_bound.value)
+                unexplored.append(floor)
+                break
             span = n_max if architecture is None else n
             columns = build_columns(evaluator, candidates[g], n, span=span, like=joint)
             if columns is None:
@@ -359,9 +409,10 @@ def milp_search(
             continue
         bound = relax(columns, row_hint=hint, stop_above=threshold(), deadline=soft_deadline())
         columns.release_arrays()  # its integer program needs only the columns
-        if not bound.feasible or not open_bound(bound.value):
+        # both are bounds: a relaxation cut short by the deadline may hold the weaker
+        value = max(bound.value, cheap) if bound.feasible else bound.value
+        if not bound.feasible or not open_bound(value):
             continue
-        value = bound.value
         relaxed.append((value, columns, bound))
         usable = columns.usable
         # a program with few designs is priced whole: cheaper than one integer program
@@ -391,7 +442,7 @@ def milp_search(
             few = few[usable[few]]
             if few.size >= usable.sum():
                 break
-            scout = build_subproblem(columns, few, mix, process_of)
+            scout = program(columns, few)
             # the scout is for incumbents only: its bound is not used, so a loose gap
             scout.set_gap(SCOUT_GAP)
             for _ in range(top):
@@ -406,20 +457,33 @@ def milp_search(
             if not scout.exhausted:
                 break  # not for want of columns: stopped by its time limit
             width *= SCOUT_WIDEN
-        sub = build_subproblem(columns, _screen(bound, usable, threshold()), mix, process_of)
+        if out_of_time():
+            # no round left for it: the program stays open at its relaxation's bound
+            timed_out = True
+            unexplored.append(value)
+            continue
+        sub = program(columns, _screen(bound, usable, threshold()))
         sub.bound = value
         sub.log.append(f"relaxation {value:.8g}; {sub.keep.size} of {columns.n_cols} columns kept")
         subs.append(sub)
         # under a time limit, a first round gets a share of it: one hard program must
         # not keep the others (and their designs) from being looked at
+        if not room(sub):
+            sub.log.append("no round: too large for the time left")
+            continue
         sub.set_cutoff(cutoff())
         solve_round(sub, until(program_end))
         price(sub)
     log.append(f"{len(relaxed)} relaxations kept, {time.perf_counter() - start:.2f} s")
+    # programs left open (at their bounds) because a round would overrun the deadline
+    too_large: set[int] = set()
     while not timed_out:
         open_subs = [s for s in subs if not s.exhausted and open_bound(s.bound)]
-        if not open_subs:
+        workable = [s for s in open_subs if id(s) not in too_large]
+        if not workable:
+            timed_out = bool(open_subs)
             break
+        open_subs = workable
         # lowest bound first, but a program whose last round ran out of its time share
         # without a design waits until the others have had theirs
         sub = min(open_subs, key=lambda s: (s.stalls, s.bound))
@@ -437,6 +501,10 @@ def milp_search(
                 sub.exhausted, sub.bound, sub.current = True, math.inf, None
                 sub.log.append(f"closed by pricing all {count} of its designs")
                 continue
+        if not room(sub):
+            too_large.add(id(sub))
+            sub.log.append("no further round: too large for the time left")
+            continue
         sub.set_cutoff(cutoff())
         solve_round(sub, share(len(open_subs)))
         price(sub)
@@ -455,7 +523,7 @@ def milp_search(
                     continue
             order = np.argsort(bound.reduced_cost, kind="stable")
             few = np.union1d(order[:screen_columns], np.flatnonzero(~bound.at_zero))
-            scout = build_subproblem(columns, few, mix, process_of)
+            scout = program(columns, few)
             scout.set_cutoff(cutoff())
             solve_round(scout, remaining())
             price(scout)
@@ -498,6 +566,46 @@ def milp_search(
         log=log,
         stats=stats,
         priced=exact,
+    )
+
+
+def _add_dp_seeds(
+    evaluator: Evaluator,
+    candidates: dict[int, CandidateSet],
+    top: int,
+    deadline: float | None,
+    architecture: tuple[int, int] | None,
+    in_scope,
+    exact: dict[Selection, float],
+    log: list[str],
+) -> None:
+    """Price the subset DP's designs exactly into ``exact``: incumbents only (they
+    tighten the threshold; every bound of the search stays what it was)."""
+    # imported here: the subset DP module imports this one
+    from optimizer.solver.subset_dp import dp_seeds, seed_reason
+
+    problem = evaluator.problem
+    if seed_reason(problem) is not None:
+        return
+    began = time.perf_counter()
+    own = None if deadline is None else began + SEED_SHARE * max(deadline - began, 0.0)
+    counts = None if architecture is None else {architecture[0]: [architecture[1]]}
+    found = [
+        s
+        for s in dp_seeds(evaluator, candidates, top, own, counts)
+        if s not in exact and in_scope(s)
+    ]
+    revenue = problem.market.unit_price * problem.market.volume
+    for g in sorted({s.packaging_index for s in found}):
+        group = [s for s in found if s.packaging_index == g]
+        profit = price_selections(evaluator, candidates[g], group).profit
+        for sel, value in zip(group, profit, strict=True):
+            # total cost = revenue - profit, infinite for an invalid product
+            exact[sel] = float(revenue - value)
+    finite = [exact[s] for s in found if math.isfinite(exact[s])]
+    log.append(
+        f"subset DP seeds: {len(found)} designs priced, best total cost "
+        f"{min(finite, default=math.inf):.10g}, {time.perf_counter() - began:.2f} s"
     )
 
 

@@ -247,18 +247,9 @@ def _packaging_dp(
     problem = evaluator.problem
     g = cset.packaging_index
     packaging = problem.packaging[g]
-    market = problem.market
     n_blocks = evaluator.blocks.n_blocks
     counts = np.arange(2, _max_dies(problem, g) + 1)
-    # V / Y_n by the evaluator's own package-yield formula (no escapes: log(1 - DL) = 0)
-    log_y = assembly.log_package_yield(
-        np.zeros((counts.size, 1)),
-        counts[:, None].astype(float),
-        packaging.bond_yield,
-        packaging.carrier_yield,
-        packaging.package_yield,
-    )
-    scale = market.volume * np.exp(-np.asarray(log_y, dtype=float).reshape(counts.size))
+    scale = _volume_over_yield(problem, g, counts)
     fixed = (
         counts * packaging.bond_cost_per_die
         + packaging.carrier_cost
@@ -274,22 +265,8 @@ def _packaging_dp(
     nre = cset.prices.nre
     low_bits = n_blocks - 1
 
-    def weights(a: float) -> tuple[np.ndarray, np.ndarray]:
-        """K best variant weights per content mask and their candidate indices."""
-        value = a * cost + nre
-        order = np.lexsort((value, masks))
-        m = masks[order]
-        first = np.r_[0, np.flatnonzero(m[1:] != m[:-1]) + 1]
-        rank = np.arange(m.size) - np.repeat(first, np.diff(np.r_[first, m.size]))
-        keep = rank < top
-        w = np.full((1 << n_blocks, top), np.inf)
-        c = np.full((1 << n_blocks, top), -1, dtype=np.int64)
-        w[m[keep], rank[keep]] = value[order][keep]
-        c[m[keep], rank[keep]] = order[keep]
-        return w, c
-
     def run(a: float, ns: list[int]):
-        w, c = weights(a)
+        w, c = _best_variants(a * cost + nre, masks, n_blocks, top)
         levels = max(ns) - 1
         best = _levels(np.ascontiguousarray(w[:, 0]), low_bits, levels)
         return a, ns, w, c, best
@@ -314,6 +291,37 @@ def _packaging_dp(
         # finish in the background rather than waited for
         pool.shutdown(wait=False, cancel_futures=True)
         _finish(evaluator, cset, found, fixed, counts, revenue, priced, log)
+
+
+def _volume_over_yield(problem: Problem, g: int, counts: np.ndarray) -> np.ndarray:
+    """V / Y_n for the die counts ``counts`` on packaging ``g``, by the evaluator's own
+    package-yield formula without test escapes (log(1 - DL) = 0)."""
+    packaging = problem.packaging[g]
+    log_y = assembly.log_package_yield(
+        np.zeros((counts.size, 1)),
+        counts[:, None].astype(float),
+        packaging.bond_yield,
+        packaging.carrier_yield,
+        packaging.package_yield,
+    )
+    return problem.market.volume * np.exp(-np.asarray(log_y, dtype=float).reshape(counts.size))
+
+
+def _best_variants(
+    value: np.ndarray, masks: np.ndarray, n_blocks: int, k: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """The ``k`` least ``value``s per content mask (2^B x k, inf where fewer) and the
+    candidate indices they belong to (-1 where none)."""
+    order = np.lexsort((value, masks))
+    m = masks[order]
+    first = np.r_[0, np.flatnonzero(m[1:] != m[:-1]) + 1]
+    rank = np.arange(m.size) - np.repeat(first, np.diff(np.r_[first, m.size]))
+    keep = rank < k
+    w = np.full((1 << n_blocks, k), np.inf)
+    c = np.full((1 << n_blocks, k), -1, dtype=np.int64)
+    w[m[keep], rank[keep]] = value[order][keep]
+    c[m[keep], rank[keep]] = order[keep]
+    return w, c
 
 
 def _finish(
@@ -350,6 +358,163 @@ def _finish(
         f"packaging {problem.packaging[g].name}: best total cost by die count "
         + ", ".join(f"{n}: {best_n[n]:.10g}" for n in sorted(best_n))
     )
+
+
+# ------------------------------------------------------------------ seeds for the search
+
+# the DP makes about 3^(B-1) transitions per level: 18 blocks is 0.4 s over 15 levels
+SEED_MAX_BLOCKS = 18
+# die counts whose V / Y_n differ by less than this share are seeded by one DP: the
+# weights of the others are then that little off, and every seed is priced exactly
+SEED_SCALE_RTOL = 0.02
+# designs read off per (packaging, die count), at least
+SEED_DESIGNS = 3
+# a generous time per 3^(B-1) transitions (3e-9 s measured, whatever the number of
+# levels past two), to skip a DP that would end past the deadline: a compiled DP once
+# started cannot be stopped
+_SECONDS_PER_TRANSITION = 1e-8
+
+
+def seed_reason(problem: Problem) -> str | None:
+    """Why :func:`dp_seeds` finds nothing for ``problem``, or None when it may."""
+    if any(block.count != 1 for block in problem.block):
+        return "a block has count above 1"
+    if len(problem.block) > SEED_MAX_BLOCKS:
+        return f"more than {SEED_MAX_BLOCKS} blocks"
+    if len(problem.block) < 2:
+        return "one block"
+    return None
+
+
+def dp_seeds(
+    evaluator: Evaluator,
+    candidates: dict[int, CandidateSet],
+    top: int = 1,
+    deadline: float | None = None,
+    die_counts: dict[int, list[int]] | None = None,
+) -> list[Selection]:
+    """Promising multi-die designs by the subset DP, for incumbents of an exact search.
+
+    Applies to any problem whose blocks all have count 1 (see :func:`seed_reason`; else
+    it returns nothing). Outside the DP's exact class (see :func:`applicability`) the
+    cost of a design is not a sum over its dies, so the DP works on a first-order
+    approximation around a typical design of cost before scrap N, escapes t and die
+    area A: die i weighs (V / Y_n) e^t (c_i + N t_i + S' a_i) + nre_i, with c_i its cost
+    per passed die, t_i = -ln(1 - DL_i), a_i its area and S' the slope of the carrier
+    cost in total die area (zero but for interposers). With defect-reduction curves
+    (one target per process and product) each DP holds every process to one target
+    level. The designs returned, the ``max(top, SEED_DESIGNS)`` best by that weight of
+    every (packaging, die count), are approximations: price them exactly.
+
+    ``candidates`` maps packaging index to its candidate dies (pruned is fine);
+    ``die_counts`` limits the die counts per packaging (default: every count from 2);
+    ``deadline`` (a `time.perf_counter` instant): no DP is started that would end past
+    it, and the designs found by then are returned.
+    """
+    problem = evaluator.problem
+    if seed_reason(problem) is not None:
+        return []
+    n_blocks = evaluator.blocks.n_blocks
+    bit = 1 << np.arange(n_blocks, dtype=np.int64)
+    k = max(top, SEED_DESIGNS)
+    found: set[Selection] = set()
+
+    def late(seconds: float = 0.0) -> bool:
+        return deadline is not None and time.perf_counter() + seconds > deadline
+
+    for g, cset in sorted(candidates.items()):
+        counts = np.arange(2, _max_dies(problem, g) + 1)
+        if die_counts is not None:
+            counts = counts[np.isin(counts, list(die_counts.get(g, ())))]
+        if counts.size == 0 or len(cset) == 0:
+            continue
+        usable = np.flatnonzero(cset.max_copies >= 1)
+        masks = cset.instances[usable].astype(np.int64) @ bit
+        for rows in _target_profiles(problem, cset, usable):
+            for ns, value in _seed_weights(evaluator, cset, rows, counts):
+                seconds = 3.0 ** (n_blocks - 1) * _SECONDS_PER_TRANSITION
+                if late(seconds):
+                    return sorted(found)
+                in_rows = np.isin(usable, rows)
+                take = usable[in_rows]
+                w, c = _best_variants(value[take], masks[in_rows], n_blocks, k)
+                best = _levels(np.ascontiguousarray(w[:, 0]), n_blocks - 1, max(ns) - 1)
+                for n in ns:
+                    if late():
+                        return sorted(found)
+                    for _, dies in _best_paths(best, w, c, n_blocks, n, k):
+                        found.add(Selection.of(g, [(take[i], 1) for i in dies]))
+    return sorted(found)
+
+
+def _target_profiles(problem: Problem, cset: CandidateSet, usable: np.ndarray) -> list:
+    """Candidate rows (of ``usable``) per target profile: level l of every process
+    with a defect-reduction curve (its last level where it has fewer), since a product
+    holds one target per process. One profile of every row without such curves."""
+    levels = [
+        len(p.defect_targets()) if p.defect_reduction is not None else 0 for p in problem.process
+    ]
+    if not any(levels):
+        return [usable]
+    profiles = []
+    process, level = cset.process[usable], cset.level[usable]
+    has = np.array(levels)[process] > 0
+    for lv in range(max(levels)):
+        wanted = np.minimum(lv, np.maximum(np.array(levels) - 1, 0))[process]
+        profiles.append(usable[~has | (level == wanted)])
+    return profiles
+
+
+def _seed_weights(
+    evaluator: Evaluator, cset: CandidateSet, rows: np.ndarray, counts: np.ndarray
+) -> list[tuple[list[int], np.ndarray]]:
+    """(die counts, weight of every candidate) per group of die counts of close V / Y_n:
+    the linearised weights of :func:`dp_seeds` (only ``rows`` are read)."""
+    problem = evaluator.problem
+    g = cset.packaging_index
+    packaging = problem.packaging[g]
+    prices = cset.prices
+    scale = _volume_over_yield(problem, g, counts)
+    # a typical design: per block the candidate with the least cost share of it (shares
+    # by block area), its cost, escapes and area summed over blocks
+    inst = cset.instances[rows].astype(float)
+    unit = (evaluator.blocks.area_mm2 * evaluator.blocks.scale).min(axis=0)
+    held = inst @ unit
+    cost = prices.cost_per_passed_die[rows]
+    escape = -prices.log1m_defect_level[rows]
+    area = prices.area_mm2[rows]
+    dies_cost = escapes = total_area = 0.0
+    for b in range(inst.shape[1]):
+        on = np.flatnonzero(inst[:, b] > 0)
+        if on.size == 0:
+            continue
+        share = unit[b] / held[on]
+        i = on[np.argmin(cost[on] * share)]
+        dies_cost += cost[i] * unit[b] / held[i]
+        escapes += escape[i] * unit[b] / held[i]
+        total_area += area[i] * unit[b] / held[i]
+    carrier = evaluator.carrier_cost(packaging, np.array([0.9, 1.0, 1.1]) * total_area).cost
+    slope = 0.0
+    if packaging.kind == "silicon_interposer" and np.all(np.isfinite(carrier)):
+        slope = float(carrier[2] - carrier[0]) / (0.2 * max(total_area, 1e-9))
+    base = float(carrier[1]) if np.isfinite(carrier[1]) else packaging.carrier_cost
+    fixed = base + packaging.package_cost + packaging.final_test_cost
+    out = []
+    first = 0
+    # die counts in order of V / Y_n (it grows with n): a group spans SEED_SCALE_RTOL
+    for last in range(counts.size + 1):
+        if last < counts.size and scale[last] <= scale[first] * (1 + SEED_SCALE_RTOL):
+            continue
+        ns = counts[first:last]
+        n = int(ns[ns.size // 2])
+        a = float(scale[first:last].mean())
+        before_scrap = dies_cost + fixed + n * packaging.bond_cost_per_die
+        per_die = cost + before_scrap * escape + slope * area
+        value = np.full(len(cset), np.inf)
+        value[rows] = a * math.exp(escapes) * per_die + prices.nre[rows]
+        out.append(([int(x) for x in ns], value))
+        first = last
+    return out
 
 
 def _submasks(rest: int) -> np.ndarray:
@@ -425,4 +590,4 @@ def _best_paths(
     return out
 
 
-__all__ = ["MAX_BLOCKS", "applicability", "subset_dp"]
+__all__ = ["MAX_BLOCKS", "applicability", "dp_seeds", "seed_reason", "subset_dp"]
