@@ -21,6 +21,9 @@ remaining set in the next part is the textbook subset DP for set partitioning
 O(3^B) per die count). The ``top`` best designs of each (packaging, n) are then read off
 by a best-first (A*) search whose heuristic is the DP's exact cost-to-go, and every
 design returned is priced by the evaluator.
+
+Outside that class the same DP on linearised weights (:func:`dp_seeds`) gives the
+integer-programming search good designs to start from: heuristics, priced exactly there.
 """
 
 from __future__ import annotations
