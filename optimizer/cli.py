@@ -316,6 +316,7 @@ app = typer.Typer(
     help="Plan dies, processes, packaging and yield targets for the most profit. " + report.CAUTION,
     no_args_is_help=True,
     add_completion=False,
+    rich_markup_mode=None,  # help texts name TOML tables in [brackets]
     pretty_exceptions_enable=False,
     context_settings={"help_option_names": ["-h", "--help"]},
 )

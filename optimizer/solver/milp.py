@@ -136,6 +136,7 @@ class ColumnShape:
     group_process: np.ndarray | None = None
     group_level: np.ndarray | None = None
     group_cost: np.ndarray | None = None
+    group_density: np.ndarray | None = None  # target defect density [/cm^2]
 
 
 _SHARED = tuple(f for f in ColumnShape.__dataclass_fields__)
@@ -373,21 +374,25 @@ def _target_groups(problem, candidates: CandidateSet, col_c: np.ndarray) -> dict
     if not curve_processes:
         return {}
     pairs = []
+    density = []
     for p in curve_processes:
-        for level, (_, one_time, _) in enumerate(problem.process[p].defect_targets()):
+        for level, (d, one_time, _) in enumerate(problem.process[p].defect_targets()):
             pairs.append((p, level, one_time))
-    index = {(p, level): g for g, (p, level, _) in enumerate(pairs)}
-    proc = candidates.process[col_c]
-    level = candidates.level[col_c]
-    target_group = np.array(
-        [index.get((int(a), int(b)), -1) for a, b in zip(proc, level, strict=True)],
-        dtype=np.int64,
-    )
+            density.append(d)
+    proc = candidates.process[col_c].astype(np.int64)
+    level = candidates.level[col_c].astype(np.int64)
+    # (process, level) -> group id, -1 for processes without a curve
+    lookup = np.full((len(problem.process), int(max(level.max(initial=0), 0)) + 1), -1)
+    for g, (p, lv, _) in enumerate(pairs):
+        if lv < lookup.shape[1]:
+            lookup[p, lv] = g
+    target_group = np.where(level >= 0, lookup[proc, np.maximum(level, 0)], -1)
     return {
         "target_group": target_group,
         "group_process": np.array([p for p, _, _ in pairs], dtype=np.int64),
         "group_level": np.array([lv for _, lv, _ in pairs], dtype=np.int64),
         "group_cost": np.array([c for _, _, c in pairs], dtype=float),
+        "group_density": np.array(density, dtype=float),
     }
 
 

@@ -11,6 +11,7 @@ only set the first threshold.
 
 from __future__ import annotations
 
+import heapq
 import math
 import time
 from collections.abc import Callable
@@ -38,6 +39,13 @@ from optimizer.solver.milp import (
     relax,
     solve_round,
 )
+from optimizer.solver.multiset_dp import (
+    MAX_LISTED,
+    MAX_NODES,
+    MAX_WORK,
+    PRICE_BATCH,
+    ProgramDP,
+)
 from optimizer.solver.partitions import enumerate_program
 from optimizer.solver.selection import Selection, price_selections, selection_mix
 
@@ -55,6 +63,9 @@ ENUMERATE_FIRST = 20_000
 # designs per second a program priced whole is assumed to take at least, after the walk
 # over its partitions (25,000 measured: 116,782 eight-die designs of 14 blocks in 4.6 s)
 ENUMERATE_RATE = 10_000
+# programs small enough are first closed by listing their designs in order of a bound
+# from dynamic programming over blocks (multiset_dp), before any relaxation
+MULTISET_DP = True
 # relative gap at which a scouting integer program (incumbents only, no bound) stops
 SCOUT_GAP = 1e-3
 # under a time limit, a round of an integer program gets at least this many seconds
@@ -113,7 +124,7 @@ class SearchOutcome:
 
 
 def _kth(values: list[float], k: int) -> float:
-    return sorted(values)[k - 1] if len(values) >= k else math.inf
+    return heapq.nsmallest(k, values)[-1] if len(values) >= k else math.inf
 
 
 def milp_search(
@@ -273,6 +284,48 @@ def milp_search(
                 exact.setdefault(sel, total)
         return count
 
+    dp_stats = {"dp_programs": 0, "dp_closed": 0, "dp_nodes": 0}
+
+    def close_by_dp(columns: Columns) -> float:
+        """List a program's designs in order of their DP bound, pricing each, until none
+        left could rank: -inf when not tried, else the least bound of the designs not
+        listed (above the threshold: closed)."""
+        count = evaluator.blocks.count
+        if not MULTISET_DP or columns.require is not None or columns.n_dies_max:
+            return -math.inf
+        if ProgramDP.work(columns, count) > MAX_WORK:
+            return -math.inf
+        dp = ProgramDP(columns, count, mix, process_of)
+        dp.build()
+        dp_stats["dp_programs"] += 1
+        stream = dp.designs(cutoff())
+        g = columns.packaging_index
+        pending: list[Selection] = []
+
+        def flush() -> None:
+            fresh = [sel for sel in dict.fromkeys(pending) if sel not in exact]
+            pending.clear()
+            if fresh:
+                prices = price_selections(evaluator, candidates[g], fresh)
+                for sel, profit in zip(fresh, prices.profit, strict=True):
+                    exact[sel] = float(revenue - profit)
+                stream.limit = min(stream.limit, cutoff())
+
+        while not out_of_time() and stream.listed < MAX_LISTED:
+            item = stream.next_design(MAX_NODES)
+            if item is None:
+                break
+            sel = Selection.of(g, [(columns.col_c[c], columns.col_k[c]) for c in item[1]])
+            if in_scope(sel):
+                pending.append(sel)
+            if len(pending) >= PRICE_BATCH:
+                flush()
+        flush()
+        dp_stats["dp_nodes"] += dp.nodes
+        if not open_bound(stream.bound):
+            dp_stats["dp_closed"] += 1
+        return stream.bound
+
     def program(columns: Columns, keep: np.ndarray) -> SubProblem:
         sub = build_subproblem(columns, keep, mix, process_of)
         if deadline is not None:
@@ -420,6 +473,18 @@ def milp_search(
             timed_out = True
             unexplored.append(cheap)
             continue
+        listed = close_by_dp(columns)
+        name = f"[{problem.packaging[columns.packaging_index].name}, {columns.n_dies} dies]"
+        if listed > -math.inf:
+            if not open_bound(listed):
+                log.append(f"{name} closed by listing its designs in order of their DP bound")
+                continue
+            # stopped early: the designs not listed are bounded by the next one's bound
+            cheap = max(cheap, listed)
+            if timed_out or out_of_time():
+                timed_out = True
+                unexplored.append(cheap)
+                continue
         bound = relax(columns, row_hint=hint, stop_above=threshold(), deadline=soft_deadline())
         columns.release_arrays()  # its integer program needs only the columns
         # both are bounds: a relaxation cut short by the deadline may hold the weaker
@@ -568,6 +633,7 @@ def milp_search(
         "designs_priced": len(exact),
         "candidate_dies": int(sum(len(c) for c in candidates.values())),
         "milp_seconds": float(sum(s.seconds for s in subs)),
+        **dp_stats,
     }
     return SearchOutcome(
         ranked=ranked,
