@@ -351,10 +351,12 @@ def _console() -> Console:
 def check(problem_path: ProblemPath) -> None:
     """Validate a problem file and show what was understood, in base units."""
     from optimizer.explore.paths import check_uncertain
-    from optimizer.problem import load_problem
 
     preflight()
-    problem = load_problem(problem_path)
+    problem = _load(problem_path)
+    if _is_family(problem):
+        _check_family(problem_path, problem)
+        return
     check_uncertain(problem, str(problem_path))
     # the evaluator (numba, scipy) loads only when there is something to price
     priced = problem.design or problem.requirements.any()
@@ -398,10 +400,12 @@ def evaluate(
     """
     from optimizer.designs import evaluate_design
     from optimizer.evaluator import Evaluator
-    from optimizer.problem import load_problem
 
     preflight()
-    problem = load_problem(problem_path)
+    problem = _load(problem_path)
+    if _is_family(problem):
+        _evaluate_family(problem_path, problem, design, as_json)
+        return
     if not problem.design:
         raise ProblemError(
             str(problem_path), "design", "the file has no [[design]] to evaluate; add one"
@@ -446,6 +450,7 @@ def evaluate(
 
 @app.command()
 def solve(
+    ctx: typer.Context,
     problem_path: ProblemPath,
     top: Annotated[int, typer.Option("--top", "-k", min=1, help="How many ranked designs.")] = 3,
     method: Annotated[
@@ -524,7 +529,6 @@ def solve(
     """
     # the time limit is wall-clock for the whole command from here, loading included
     deadline = None if time_limit is None else time.perf_counter() + time_limit
-    from optimizer.problem import load_problem
     from optimizer.solver import METHODS
     from optimizer.solver import solve as run_solver
     from optimizer.targets import price_requirements
@@ -535,7 +539,19 @@ def solve(
         )
     preflight(results_dir if write else None)
     options = _requirement_options(require_die_yield, require_sigma, require_defect_level)
-    problem = load_problem(problem_path)
+    problem = _load(problem_path)
+    if _is_family(problem):
+        _family_options(ctx, problem_path)
+        explicit = _given(ctx, "method")
+        _solve_family(
+            problem_path,
+            problem,
+            deadline,
+            method if explicit else None,
+            as_json,
+            results_dir if write else None,
+        )
+        return
     mandate = _requirements(problem, options)
     table = dict(architectures=table_time > 0, table_time=table_time, split_mixes=mixes)
     if mandate is not None and mandate.any():
@@ -782,6 +798,245 @@ def _ranked_csv(solution) -> str:
     return pd.DataFrame(rows).to_csv(index=False)
 
 
+# ---------------------------------------------------------------- product families
+def _load(problem_path: Path):
+    """The file's :class:`Problem`, or its :class:`Family` when it holds [[product]]
+    tables; read once, validated as ``load_problem`` and ``load_family`` do."""
+    from optimizer.family import family_from_data, is_family
+    from optimizer.problem import check_feasible, parse_problem, read_problem_data
+
+    data, source = read_problem_data(problem_path)
+    if is_family(data):
+        return family_from_data(data, source)
+    problem = parse_problem(data, source)
+    check_feasible(problem, source)
+    return problem
+
+
+def _is_family(loaded) -> bool:
+    from optimizer.family import Family
+
+    return isinstance(loaded, Family)
+
+
+def _in_product(error: ProblemError, name: str) -> ProblemError:
+    """A single-product error raised on a family member, named under its product."""
+    own = error.field.split(".")[0].split("[")[0] in ("market", "requirements", "design")
+    where = f"product '{name}'.{error.field}" if own else f"product '{name}': {error.field}"
+    return ProblemError(error.source, where, error.message)
+
+
+def _check_family(problem_path: Path, family) -> None:
+    from optimizer import family_report
+
+    found = []
+    for member in family.members:
+        problem = member.problem
+        try:
+            results = (
+                _check_designs(problem_path, problem)
+                if problem.design or problem.requirements.any()
+                else []
+            )
+        except ProblemError as error:
+            raise _in_product(error, member.name) from None
+        found.append((member.name, results))
+    console = _console()
+    console.print(family_report.family_summary(family, str(problem_path)))
+    for name, results in found:
+        for result in results:
+            for violation in result.violations:
+                console.print(
+                    Text(
+                        f"product '{name}': design '{result.design}' breaks rule: {violation}",
+                        style="red",
+                    )
+                )
+    console.print(Text(f"ok: {problem_path} is valid: a family of {len(family.members)} products."))
+
+
+def _family_designs(problem_path: Path, family, only: str | None) -> list[str]:
+    """Names of the family designs to price: each must be a [[product.design]] of every
+    product."""
+    names: list[str] = []
+    for member in family.members:
+        for design in member.problem.design:
+            if design.name not in names:
+                names.append(design.name)
+    if not names:
+        raise ProblemError(
+            str(problem_path),
+            "product.design",
+            "no product has a [[product.design]]; add one under each [[product]], all with "
+            "the same name, to price them as one family design",
+        )
+    if only is not None:
+        if only not in names:
+            raise ProblemError(
+                "--design",
+                "",
+                f"no family design named '{short(only)}' in {problem_path}; use one of {names}",
+            )
+        names = [only]
+    for name in names:
+        for member in family.members:
+            if name not in [d.name for d in member.problem.design]:
+                holder = next(
+                    m.name for m in family.members if name in [d.name for d in m.problem.design]
+                )
+                raise ProblemError(
+                    str(problem_path),
+                    f"product '{member.name}'.design",
+                    f"has no design named '{short(name)}' (product '{holder}' has one); a "
+                    "family design needs one per product, so add a [[product.design]] named "
+                    f"'{short(name)}' under product '{member.name}'",
+                )
+    return names
+
+
+def _evaluate_family(problem_path: Path, family, only: str | None, as_json: bool) -> None:
+    from optimizer import family_report
+    from optimizer.designs import evaluate_design
+    from optimizer.evaluator import Evaluator
+    from optimizer.solver.family import family_profit
+
+    wanted = _family_designs(problem_path, family, only)
+    names = family.names
+    problems = [m.problem for m in family.members]
+    evaluators = [Evaluator(p) for p in problems]
+    priced = []
+    for name in wanted:
+        results = []
+        for member, evaluator in zip(family.members, evaluators, strict=True):
+            try:
+                results.append(
+                    evaluate_design(evaluator, member.problem.design_named(name), str(problem_path))
+                )
+            except ProblemError as error:
+                raise _in_product(error, member.name) from None
+        conflict = family_report.target_conflict(names, results)
+        total = family_profit(problems, results) if conflict is None else None
+        priced.append((name, results, total, conflict))
+    # the family designs that keep every rule first, each group by family profit
+    priced.sort(
+        key=lambda item: (
+            any(r.violations for r in item[1]),
+            item[2] is None,
+            -(item[2][0] if item[2] is not None else 0.0),
+        )
+    )
+    if as_json:
+        payload = {
+            "family": family.title,
+            "products": names,
+            "designs": [
+                {
+                    "design": name,
+                    "profit": total[0] if total is not None else None,
+                    "shared_nre": total[1] if total is not None else None,
+                    "shared_targets": total[2] if total is not None else None,
+                    "conflict": conflict,
+                    "products": [
+                        {"product": n, **r.to_dict()} for n, r in zip(names, results, strict=True)
+                    ],
+                }
+                for name, results, total, conflict in priced
+            ],
+        }
+        typer.echo(json_text(payload))
+        return
+    console = _console()
+    for name, results, total, conflict in priced:
+        console.print(
+            family_report.family_design_view(name, names, results, total or (0, 0, 0), conflict)
+        )
+        console.print()
+    if len(priced) > 1:
+        rows = [
+            (name, total[0] if total is not None else None, any(r.violations for r in results))
+            for name, results, total, _ in priced
+        ]
+        console.print(family_report.designs_overview(rows, problems[0].market.currency))
+    console.print(report.CAUTION, style="dim", markup=False)
+
+
+# solve options a family solve does not take, and what to do instead
+FAMILY_REFUSES = {
+    "top": ("--top", "a family solve gives one design per product"),
+    "table_time": ("--table-time", "the architecture table is made for one product"),
+    "mixes": ("--mixes", "process mixes are split for one product's architecture table"),
+    "by_architecture": ("--by-architecture", "the ranked list is made for one product"),
+    "require_die_yield": ("--require-die-yield", "mandates are stated per product"),
+    "require_sigma": ("--require-sigma", "mandates are stated per product"),
+    "require_defect_level": ("--require-defect-level", "mandates are stated per product"),
+}
+
+
+def _given(ctx: typer.Context, name: str) -> bool:
+    source = ctx.get_parameter_source(name)
+    return source is not None and source.name in ("COMMANDLINE", "ENVIRONMENT")
+
+
+def _family_options(ctx: typer.Context, problem_path: Path) -> None:
+    for name, (option, why) in FAMILY_REFUSES.items():
+        if not _given(ctx, name):
+            continue
+        if option.startswith("--require"):
+            key = REQUIRE_OPTIONS[option][0]
+            fix = (
+                f"drop it and state {key} in [product.requirements] of each product that must "
+                "meet it"
+            )
+        else:
+            fix = "drop it, or write one product as its own problem file and solve that"
+        raise ProblemError(
+            option,
+            "",
+            f"does not apply to the product family in {problem_path} ({why}); {fix}",
+        )
+
+
+def _solve_family(
+    problem_path: Path,
+    family,
+    deadline: float | None,
+    method: str | None,
+    as_json: bool,
+    results_dir: Path | None,
+) -> None:
+    from optimizer import family_report
+    from optimizer.solver.family import solve_family
+
+    limit = None if deadline is None else max(0.0, deadline - time.perf_counter())
+    options = {} if method is None else {"method": method}
+    solution = solve_family(family, time_limit=limit, source=str(problem_path), **options)
+    payload = family_report.family_dict(solution, family.title)
+    folder = None
+    if results_dir is not None:
+        files = {
+            "family.json": text_writer(json_text(payload) + "\n"),
+            "library.csv": text_writer(family_report.library_csv(solution)),
+            "products.csv": text_writer(family_report.products_csv(solution)),
+            "solver.log": text_writer("\n".join(solution.log) + "\n"),
+            "problem.toml": copy_writer(problem_path),
+            # each product's design as [[product.design]], for `evaluate` to re-price
+            "designs.toml": text_writer(
+                family_report.designs_toml(family, solution.designs, "family_optimum")
+            ),
+        }
+        folder = write_run_folder(results_dir, "solve", problem_path.stem, files)
+    if as_json:
+        if folder is not None:
+            payload["run_folder"] = str(folder)
+        typer.echo(json_text(payload))
+        return
+    console = _console()
+    console.print(family_report.family_view(solution, family.title))
+    if folder is not None:
+        console.print(Text(f"wrote {folder}"))
+    console.print(report.CAUTION, style="dim", markup=False)
+
+
 @app.command()
 def new(
     path: Annotated[Path, typer.Argument(help="Where to write the file.", show_default=False)],
@@ -819,13 +1074,20 @@ def profit_curve_command(
 ) -> None:
     """Profit and cost per good unit of the winning design against its yield target."""
     from optimizer.explore.plots import literal_text
-    from optimizer.problem import load_problem
     from optimizer.solver import solve as run_solver
     from optimizer.targets import cost_rises_without_bound, profit_curve, profit_curve_figure
 
     _requirement_options(require_die_yield, None, None)
     preflight(results_dir)
-    problem = load_problem(problem_path)
+    problem = _load(problem_path)
+    if _is_family(problem):
+        raise ProblemError(
+            str(problem_path),
+            "product",
+            "profit-curve follows one product's winner, and this file is a family of "
+            f"{len(problem.members)} products; run 'dieplan solve' on it, or write one product "
+            "as its own problem file",
+        )
     solution = run_solver(problem, top=1, source=str(problem_path))
     frame = profit_curve(problem, solution.best, points=points)
     mandated = (

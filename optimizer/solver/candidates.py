@@ -324,11 +324,15 @@ def build_candidates(
     requirements: Requirements | None = None,
     deadline: float | None = None,
     by_process: bool = False,
+    mandate_metrics: bool = False,
 ) -> CandidateSet:
     """Price every admissible candidate die for one packaging option.
 
     With ``by_process`` a die is only dropped for a dominating variant on its own
     process, so that designs with a stated count of dies per process stay complete.
+    With ``mandate_metrics`` a dominating variant must also have no lower die yield and
+    sigma margin, so that it meets every mandate the dropped one meets (products of a
+    family with mandates of their own share dies).
 
     With ``prune`` (the solver's default) variants of a content dominated by ``depth``
     others (the number of ranked designs wanted) are dropped; the exhaustive reference
@@ -392,6 +396,9 @@ def build_candidates(
             -prices.salvage_per_good[idx],
         ]
     )
+    if mandate_metrics:
+        sigma = np.nan_to_num(prices.sigma_margin[idx], nan=0.0, posinf=np.inf)
+        metrics = np.column_stack([metrics, -prices.die_yield[idx], -sigma])
     if prune:
         idx = idx[pareto_keep(group.ravel(), metrics, depth)]
     inst_k = inst[idx]

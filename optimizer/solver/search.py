@@ -138,6 +138,7 @@ def milp_search(
     candidates: dict[int, CandidateSet] | None = None,
     seed: dict[Selection, float] | None = None,
     require: dict[int, np.ndarray] | None = None,
+    ceiling: float | None = None,
 ) -> SearchOutcome:
     """Proven top-``top`` designs by integer programming with exact verification.
 
@@ -157,7 +158,9 @@ def milp_search(
     candidate dies, and ``seed`` (designs priced earlier, selection -> total cost) gives
     the search its first incumbents. With ``require`` (per packaging, a mask over its
     candidates) only designs holding at least one of those dies are searched, the
-    others having been searched before (the proof covers both together).
+    others having been searched before (the proof covers both together). With
+    ``ceiling`` (a total cost) every design costing at most that much is searched for,
+    however many there are: they are all in ``priced`` when the search is proven.
     """
     start = time.perf_counter()
     problem = evaluator.problem
@@ -347,6 +350,8 @@ def milp_search(
         return None if soft is None else soft - time.perf_counter()
 
     def threshold() -> float:
+        if ceiling is not None:
+            return ceiling
         return _kth(list(exact.values()), top)
 
     def cutoff() -> float:
