@@ -550,6 +550,7 @@ def solve(
             method if explicit else None,
             as_json,
             results_dir if write else None,
+            table_time=table_time,
         )
         return
     mandate = _requirements(problem, options)
@@ -963,7 +964,6 @@ def _evaluate_family(problem_path: Path, family, only: str | None, as_json: bool
 # solve options a family solve does not take, and what to do instead
 FAMILY_REFUSES = {
     "top": ("--top", "a family solve gives one design per product"),
-    "table_time": ("--table-time", "the architecture table is made for one product"),
     "mixes": ("--mixes", "process mixes are split for one product's architecture table"),
     "by_architecture": ("--by-architecture", "the ranked list is made for one product"),
     "require_die_yield": ("--require-die-yield", "mandates are stated per product"),
@@ -1003,14 +1003,24 @@ def _solve_family(
     method: str | None,
     as_json: bool,
     results_dir: Path | None,
+    table_time: float = 0.0,
 ) -> None:
     from optimizer import family_report
     from optimizer.solver.family import solve_family
+    from optimizer.solver.family_table import family_tables
 
     limit = None if deadline is None else max(0.0, deadline - time.perf_counter())
     options = {} if method is None else {"method": method}
     solution = solve_family(family, time_limit=limit, source=str(problem_path), **options)
+    tables = {}
+    if table_time > 0:
+        left = table_time
+        if deadline is not None:
+            left = min(left, max(0.0, deadline - time.perf_counter()))
+        problems = [m.problem for m in family.members]
+        tables = family_tables(solution, problems, str(problem_path), time_limit=left)
     payload = family_report.family_dict(solution, family.title)
+    payload["architectures"] = family_report.tables_dict(tables)
     folder = None
     if results_dir is not None:
         files = {
@@ -1024,6 +1034,8 @@ def _solve_family(
                 family_report.designs_toml(family, solution.designs, "family_optimum")
             ),
         }
+        if tables:
+            files["architectures.csv"] = text_writer(family_report.tables_csv(tables))
         folder = write_run_folder(results_dir, "solve", problem_path.stem, files)
     if as_json:
         if folder is not None:
@@ -1032,6 +1044,10 @@ def _solve_family(
         return
     console = _console()
     console.print(family_report.family_view(solution, family.title))
+    if tables:
+        console.print(
+            family_report.tables_view(tables, solution.library, solution.designs[0].currency)
+        )
     if folder is not None:
         console.print(Text(f"wrote {folder}"))
     console.print(report.CAUTION, style="dim", markup=False)

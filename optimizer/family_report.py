@@ -489,3 +489,92 @@ def designs_toml(family: Family, designs: list[DesignResult], name: str) -> str:
             lines.append(line)
         chunks.append(f"# product '{member.name}'\n" + "\n".join(lines) + "\n")
     return "\n".join(chunks)
+
+
+# ---------------------------------------------------------------- per-product tables
+def _row_dies(design: DesignResult, names: dict[tuple, str]) -> str:
+    """A row's dies, by library name where the optimum's library holds them."""
+    from optimizer.solver.family import die_key
+
+    parts = []
+    for die in design.dies:
+        label = names.get(die_key(die))
+        text = label or f"new {die.process} die ({_blocks(die.blocks)})"
+        parts.append(f"{die.copies}x {text}")
+    return " + ".join(parts)
+
+
+def _row_proof(row) -> str:
+    if row.proven:
+        return "optimum" if row.optimum else "proven"
+    if row.design is None:
+        return "open"
+    gap = (row.profit_bound - row.family_profit) / max(abs(row.family_profit), 1.0)
+    return f"gap {percent(max(gap, 0.0), 2)}"
+
+
+def tables_view(tables: dict, library: list[LibraryDie], currency: str) -> Group:
+    """Per product, the best design of each architecture with the others as in the
+    family optimum: the family profit it would give and how far behind it is."""
+    names = labels(library)
+    parts = []
+    for product, rows in tables.items():
+        table = literal_table(
+            f"Product {product}: best design of each architecture, the other products as in "
+            f"the family optimum (money in {currency})"
+        )
+        for col in ("architecture", "family profit", "behind", "proof", "dies"):
+            justify = "right" if col in ("family profit", "behind") else "left"
+            table.add_column(col, justify=justify)
+        for row in rows:
+            if row.design is None:
+                table.add_row(*cells(row.label, "", "", _row_proof(row), "no design"))
+                continue
+            table.add_row(
+                *cells(
+                    row.label,
+                    money(row.family_profit),
+                    "" if row.optimum else money(row.behind),
+                    _row_proof(row),
+                    _row_dies(row.design, names),
+                )
+            )
+        parts.append(table)
+    return Group(*parts)
+
+
+def tables_dict(tables: dict) -> dict:
+    return {
+        product: [
+            {
+                "architecture": row.label,
+                "packaging": row.packaging,
+                "n_dies": row.n_dies,
+                "family_profit": row.family_profit if row.design is not None else None,
+                "behind": row.behind if row.design is not None else None,
+                "proven": row.proven,
+                "profit_bound": row.profit_bound,
+                "optimum": row.optimum,
+                "design": row.design.to_dict() if row.design is not None else None,
+            }
+            for row in rows
+        ]
+        for product, rows in tables.items()
+    }
+
+
+def tables_csv(tables: dict) -> str:
+    rows = [
+        {
+            "product": product,
+            "architecture": row.label,
+            "family_profit": row.family_profit if row.design is not None else "",
+            "behind": row.behind if row.design is not None else "",
+            "proven": row.proven,
+            "profit_bound": row.profit_bound,
+            "optimum": row.optimum,
+        }
+        for product, rows_ in tables.items()
+        for row in rows_
+    ]
+    return _csv(rows) if rows else ""

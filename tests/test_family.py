@@ -187,3 +187,49 @@ def test_random_three_product_families_equal_brute_force(seed):
     found = solve_family(family)
     assert found.proven
     assert found.profit == pytest.approx(_reference(family), rel=RTOL, abs=1e-6)
+
+
+def _table_reference(family, solution) -> dict:
+    """Per product and architecture: the best family profit with that product switched
+    to any of its designs of that architecture (all designs by the exhaustive
+    reference, each family priced by family_profit)."""
+    problems = [m.problem for m in family.members]
+    out = {}
+    for i, member in enumerate(family.members):
+        evaluator = Evaluator(member.problem)
+        found = exhaustive_search(evaluator, top=10**7)
+        best: dict[tuple[str, int], float] = {}
+        for sel, cost in found.priced.items():
+            if not math.isfinite(cost):
+                continue
+            packaging = member.problem.packaging[sel.packaging_index].name
+            specs = selection_specs(evaluator, found.candidates[sel.packaging_index], sel)
+            designs = list(solution.designs)
+            designs[i] = evaluate_specs(evaluator, specs, packaging, member.name)
+            key = (packaging, sel.n_dies)
+            best[key] = max(best.get(key, -math.inf), family_profit(problems, designs)[0])
+        out[member.name] = best
+    return out
+
+
+@pytest.mark.parametrize("seed", [None, 1, 2, 5, 8, 12])
+def test_product_tables_equal_brute_force(seed):
+    # each product's decision table within the family optimum: the other products
+    # keep their designs (their dies and targets already paid for)
+    from optimizer.solver.family_table import family_tables
+
+    if seed is None:
+        family = parse_family(_family(30.0e6, (1.5e5, 1.5e5)))
+    else:
+        family = parse_family(random_family(seed, 2, budget=400), f"seed{seed}")
+    solution = solve_family(family)
+    tables = family_tables(solution, [m.problem for m in family.members])
+    reference = _table_reference(family, solution)
+    for name, rows in tables.items():
+        got = {(r.packaging, r.n_dies): r.family_profit for r in rows if r.design is not None}
+        assert set(got) == set(reference[name]), (name, got, reference[name])
+        for key, value in reference[name].items():
+            assert got[key] == pytest.approx(value, rel=RTOL, abs=1e-6), (name, key)
+        assert all(r.proven for r in rows)
+        (optimum,) = [r for r in rows if r.optimum]
+        assert optimum.family_profit == pytest.approx(solution.profit, rel=RTOL)

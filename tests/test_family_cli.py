@@ -250,6 +250,19 @@ def test_solve_family_money_adds_up(solved):
         assert per_die == d["n_dies"] == sum(d["library_dies"].values())
 
 
+def test_solve_gives_each_products_table_within_the_family(solved):
+    # one row per (packaging, die count) of each product; the row of the product's own
+    # architecture in the optimum carries the family optimum itself
+    tables = solved["architectures"]
+    assert set(tables) == {"small", "large"}
+    for name, design in zip(solved["products"], solved["designs"], strict=True):
+        (own,) = [row for row in tables[name] if row["optimum"]]
+        assert own["family_profit"] == pytest.approx(solved["profit"], rel=1e-9)
+        assert own["packaging"] == design["packaging"]
+        behind = [r["behind"] for r in tables[name] if r["family_profit"] is not None]
+        assert min(behind) == pytest.approx(0.0, abs=1e-6 * abs(solved["profit"]))
+
+
 def test_solve_run_folder(solved):
     folder = Path(solved["run_folder"])
     assert folder.name.split("-solve-")[1] == "line"
@@ -260,6 +273,7 @@ def test_solve_run_folder(solved):
         "solver.log",
         "problem.toml",
         "designs.toml",
+        "architectures.csv",
     }
     written = json.loads((folder / "family.json").read_text())
     assert written == {k: v for k, v in solved.items() if k != "run_folder"}
@@ -320,7 +334,6 @@ def test_solve_prints_library_products_and_premium(family_file, direct, monkeypa
     "option",
     [
         ["--top", "2"],
-        ["--table-time", "5"],
         ["--mixes", "2"],
         ["--by-architecture"],
         ["--require-die-yield", "0.9"],

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import itertools
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -325,6 +326,7 @@ def build_candidates(
     deadline: float | None = None,
     by_process: bool = False,
     mandate_metrics: bool = False,
+    adjust: Callable | None = None,
 ) -> CandidateSet:
     """Price every admissible candidate die for one packaging option.
 
@@ -332,7 +334,9 @@ def build_candidates(
     process, so that designs with a stated count of dies per process stay complete.
     With ``mandate_metrics`` a dominating variant must also have no lower die yield and
     sigma margin, so that it meets every mandate the dropped one meets (products of a
-    family with mandates of their own share dies).
+    family with mandates of their own share dies). ``adjust(prices, process, instances,
+    spares, repairs, critical_option)`` may return changed die prices before the
+    filters and pruning (a product of a family whose library already pays some NRE).
 
     With ``prune`` (the solver's default) variants of a content dominated by ``depth``
     others (the number of ranked designs wanted) are dropped; the exhaustive reference
@@ -360,6 +364,8 @@ def build_candidates(
         extra = {name: value[keep] for name, value in extra.items()}
     process, inst, spare, repair = batch.process, batch.instances, batch.spares, batch.repairs
     prices = _price_in_chunks(evaluator, batch, deadline)
+    if adjust is not None:
+        prices = adjust(prices, process, inst, spare, repair, extra["critical"])
     ok = (
         prices.fits_reticle
         & (prices.gross_dies_per_wafer > 0)

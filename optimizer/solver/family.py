@@ -99,7 +99,9 @@ def die_key(die) -> tuple:
         tuple(sorted(die.blocks.items())),
         tuple(sorted((k, v) for k, v in die.spares.items() if v)),
         tuple(sorted((k, v) for k, v in die.repair.items() if v)),
-        None if die.sigma_margin is None or math.isnan(die.sigma_margin) else die.sigma_margin,
+        None
+        if die.sigma_margin is None or not math.isfinite(die.sigma_margin)
+        else float(die.sigma_margin),
         die.critical_area_option,
         round(die.area_mm2, 9),
     )
