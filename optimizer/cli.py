@@ -808,6 +808,11 @@ def _load(problem_path: Path):
 
     data, source = read_problem_data(problem_path)
     if is_family(data):
+        if "uncertain" in data:
+            # a family's [[uncertain]] entries sit at the top level (exploration reads them)
+            from optimizer.explore.family_paths import family_study_from_data
+
+            return family_study_from_data(data, source).family
         return family_from_data(data, source)
     problem = parse_problem(data, source)
     check_feasible(problem, source)

@@ -212,6 +212,18 @@ def compare(
             "applies to one problem file; give one file with --processes, or several "
             "files without it",
         )
+    families = [_is_family_file(p) for p in problem_paths]
+    if any(families):
+        if not all(families):
+            plain = next(p for p, f in zip(problem_paths, families, strict=True) if not f)
+            raise ProblemError(
+                str(plain),
+                "product",
+                "is a single-product file among product families; compare family files "
+                "with family files and problem files with problem files",
+            )
+        _compare_family(problem_paths, processes, time_limit, as_json, results_dir, write)
+        return
     preflight(results_dir if write else None)
     studies = [load_study(p) for p in problem_paths]
     if len(studies) > 1:
@@ -348,6 +360,12 @@ def sweep(
     from optimizer.explore.sweep import make_axis, run_sweep
 
     console = _console()
+    if _is_family_file(problem_path):
+        _sweep_family(
+            problem_path, vary, steps, log, vary2, steps2, log2, refine, every_point,
+            workers, scheduler, time_limit, as_json, results_dir, write,
+        )  # fmt: skip
+        return
     axes = [make_axis(vary[0], vary[1], vary[2], steps, log, "--vary", "--steps")]
     if vary2 is not None:
         axes.append(make_axis(vary2[0], vary2[1], vary2[2], steps2, log2, "--vary2", "--steps2"))
@@ -484,6 +502,9 @@ def sensitivity(
     from optimizer.explore.sensitivity import make_range, ranges_from_study, run_sensitivity
 
     console = _console()
+    if _is_family_file(problem_path):
+        _sensitivity_family(problem_path, ranges, time_limit, as_json, results_dir, write)
+        return
     extra = [_parse_range(text, make_range) for text in ranges or []]
     preflight(results_dir if write else None)
     study = load_study(problem_path)
@@ -564,7 +585,12 @@ def uncertainty(
         int,
         typer.Option("--seed", min=0, help="Random seed, 0 or more (same seed, same result)."),
     ] = 0,
-    top: Annotated[int, typer.Option("--top", "-k", min=1, help="Designs to compare.")] = 3,
+    top: Annotated[
+        int | None,
+        typer.Option(
+            "--top", "-k", min=1, help="Designs to compare (default 3).", show_default=False
+        ),
+    ] = None,
     workers: Workers = None,
     scheduler: Scheduler = None,
     time_limit: TimeLimit = None,
@@ -578,6 +604,21 @@ def uncertainty(
     from optimizer.explore.uncertainty import run_uncertainty
 
     console = _console()
+    if _is_family_file(problem_path):
+        if top is not None:
+            raise ProblemError(
+                "--top",
+                str(top),
+                f"does not apply to the product family in {problem_path} (a family solve "
+                "gives one family design; it is compared with the products' own optima); "
+                "drop --top",
+            )
+        _uncertainty_family(
+            problem_path, samples, seed, workers, scheduler, time_limit, as_json,
+            results_dir, write,
+        )  # fmt: skip
+        return
+    top = 3 if top is None else top
     runner = _runner(workers, scheduler)
     preflight(results_dir if write else None)
     study = load_study(problem_path)
@@ -655,6 +696,401 @@ def uncertainty(
         for row in result.summary.itertuples():
             _say(console, f"rank {row.rank}: {row.design}", "dim")
         for row in result.summary.itertuples():
+            if row.unbuildable_samples:
+                _say(
+                    console,
+                    f"rank {row.rank} cannot be built in {row.unbuildable_samples} "
+                    "samples (left out of its percentiles)",
+                    "dim",
+                )
+
+    _finish(console, as_json, payload, folder, show)
+
+
+# ---------------------------------------------------------------- product families
+def _is_family_file(path: Path) -> bool:
+    """Whether the file declares a product family; a file that cannot be read is left
+    to the single-product path, which reports it as before."""
+    from optimizer.family import is_family
+    from optimizer.problem import read_problem_data
+
+    try:
+        data, _ = read_problem_data(path)
+    except (ProblemError, OSError):
+        return False
+    return is_family(data)
+
+
+def _family_rows(fixed) -> dict:
+    """A fixed family design as JSON: its library in brief and each product's design."""
+    return {
+        "kind": fixed.kind,
+        "summary": fixed.summary,
+        "library_dies": fixed.library_dies,
+        "shared_dies": fixed.shared_dies,
+        "shared": fixed.shared,
+        "products": _design_rows(dict(zip(fixed.names, fixed.designs, strict=True))),
+    }
+
+
+def _compare_family(
+    problem_paths: list[Path],
+    processes: list[str] | None,
+    time_limit: float | None,
+    as_json: bool,
+    results_dir: Path,
+    write: bool,
+) -> None:
+    from optimizer.explore import family as fam
+    from optimizer.explore.family_paths import load_family_study
+    from optimizer.explore.plots import family_comparison_figure
+
+    console = _console()
+    preflight(results_dir if write else None)
+    studies = [load_family_study(p) for p in problem_paths]
+    if len(studies) > 1:
+        options = fam.family_file_options(studies)
+    else:
+        sets = [s.split(",") for s in processes] if processes else None
+        options = fam.family_process_options(studies[0], sets)
+        if not options:
+            raise ProblemError(
+                str(problem_paths[0]), "process", "no process can be packaged on its own"
+            )
+    with _progress(console, not as_json) as (stage, advance):
+        stage("solving each family option", len(options))
+        result = fam.compare_families(options, time_limit=time_limit, progress=advance)
+    currency = studies[0].currency
+    table = result.table
+    payload = {
+        "command": "compare",
+        "options": {
+            "problems": [str(p) for p in problem_paths],
+            "family": True,
+            "processes": processes,
+            "time_limit": time_limit,
+        },
+        "comparison": _records(table),
+        "notes": {k: list(v) for k, v in result.notes.items()},
+    }
+    folder = None
+    if write:
+        files: dict[str, Writer] = {
+            "comparison.csv": _csv_writer(table),
+            "comparison.json": json_writer(payload),
+            "options.json": json_writer(payload["options"]),
+            **_figure_writers(
+                "family_profit",
+                family_comparison_figure(result, currency),
+                " ".join(s.title for s in studies),
+            ),
+        }
+        files.update(_problem_copies(problem_paths))
+        folder = write_run_folder(results_dir, "compare", problem_paths[0].stem, files)
+
+    def show() -> None:
+        view = literal_table(f"Family optima side by side ({currency})")
+        for col in (
+            "option",
+            "family profit",
+            "vs best",
+            "reuse premium",
+            "die designs",
+            "shared",
+            "NRE saved",
+            "proven",
+        ):
+            view.add_column(col, justify="left" if col == "option" else "right")
+        for row in table.itertuples():
+            if not math.isfinite(row.profit):
+                view.add_row(*cells(row.option, *["-"] * 7))
+                continue
+            view.add_row(
+                *cells(
+                    row.option,
+                    money(row.profit),
+                    money(row.profit_vs_best),
+                    _signed(row.reuse_premium),
+                    str(int(row.library_dies)),
+                    str(int(row.shared_dies)),
+                    money(row.shared_nre),
+                    "yes" if row.proven_optimal else f"no (gap {100 * row.gap:.2f}%)",
+                )
+            )
+        console.print(view)
+        for row in table.itertuples():
+            if isinstance(row.shared, str):
+                console.print(
+                    Text.assemble((str(row.option), "bold"), f": shared dies: {row.shared}")
+                )
+            if isinstance(row.notes, str) and row.notes:
+                _say(console, f"  note: {row.notes}", "dim")
+
+    _finish(console, as_json, payload, folder, show)
+
+
+def _sweep_family(
+    problem_path, vary, steps, log, vary2, steps2, log2, refine, every_point,
+    workers, scheduler, time_limit, as_json, results_dir, write,
+) -> None:  # fmt: skip
+    from optimizer.explore.family import make_family_axis, run_family_sweep
+    from optimizer.explore.family_paths import load_family_study
+    from optimizer.explore.plots import sweep_figure
+
+    console = _console()
+    axes = [make_family_axis(vary[0], vary[1], vary[2], steps, log, "--vary", "--steps")]
+    if vary2 is not None:
+        axes.append(
+            make_family_axis(vary2[0], vary2[1], vary2[2], steps2, log2, "--vary2", "--steps2")
+        )
+    runner = _runner(workers, scheduler)
+    preflight(results_dir if write else None)
+    study = load_family_study(problem_path)
+    with runner.session(), _progress(console, not as_json) as (stage, advance):
+        runner.start()
+        result = run_family_sweep(
+            study,
+            axes,
+            runner=runner,
+            time_limit=time_limit,
+            refine=refine,
+            progress=advance,
+            stage=stage,
+        )
+    currency = study.currency
+    options = {
+        "problem": str(problem_path),
+        "family": True,
+        "products": study.family.names,
+        "axes": [
+            {
+                "path": a.path.text,
+                "unit": a.path.unit_text,
+                "low": a.low,
+                "high": a.high,
+                "steps": a.steps,
+                "log": a.log,
+            }
+            for a in result.axes
+        ],
+        "refine": refine,
+        "every_point": every_point,
+        "strategy": result.strategy,
+        "solves": result.solves,
+        "workers": runner.workers,
+        "scheduler": scheduler,
+        "time_limit": time_limit,
+    }
+    payload = {
+        "command": "sweep",
+        "options": options,
+        "points": _records(result.points),
+        "crossovers": _records(result.crossovers),
+        "designs": {key: _family_rows(d) for key, d in result.designs.items()},
+    }
+    folder = None
+    if write:
+        stem = "profit" if len(result.axes) == 1 else "winner_map"
+        files: dict[str, Writer] = {
+            "points.csv": _csv_writer(result.points),
+            "crossovers.csv": _csv_writer(result.crossovers),
+            "designs.json": json_writer(payload["designs"]),
+            "options.json": json_writer(options),
+            **_figure_writers(stem, sweep_figure(result, currency), study.title),
+            "problem.toml": copy_writer(problem_path),
+        }
+        if result.curves is not None:
+            files["curves.csv"] = _csv_writer(result.curves)
+        folder = write_run_folder(results_dir, "sweep", problem_path.stem, files)
+
+    def show() -> None:
+        axis_names = " x ".join(a.path.label for a in result.axes)
+        _say(
+            console,
+            f"{len(result.points)} scenarios over {axis_names} on {runner.description} "
+            f"({result.solves} family solves; objective: family profit)",
+        )
+        kinds = literal_table("Winning family designs")
+        for col in ("id", "family design kind", "wins", "shared dies"):
+            kinds.add_column(col, justify="right" if col == "wins" else "left")
+        wins = result.points["design_id"].value_counts()
+        for key, design in result.designs.items():
+            kinds.add_row(*cells(key, design.kind, str(int(wins.get(key, 0))), design.shared))
+        console.print(kinds)
+        if result.crossovers.empty:
+            _say(console, "no crossover: one family design kind wins over the whole range")
+            return
+        view = literal_table("Crossovers (winning family design kind changes)")
+        for col in ("axis", "at", "from", "to", "crossing", "family profit there", "how"):
+            view.add_column(col)
+        for row in result.crossovers.itertuples():
+            where = (
+                f"{row.crossing:.6g}"
+                if math.isfinite(row.crossing)
+                else (f"{row.grid_low:.6g} .. {row.grid_high:.6g}")
+            )
+            view.add_row(
+                *cells(
+                    row.axis,
+                    row.at,
+                    row.design_before,
+                    row.design_after,
+                    where,
+                    money(row.profit_at_crossing, currency)
+                    if math.isfinite(row.profit_at_crossing)
+                    else "-",
+                    row.method,
+                )
+            )
+        console.print(view)
+
+    _finish(console, as_json, payload, folder, show)
+
+
+def _sensitivity_family(problem_path, ranges, time_limit, as_json, results_dir, write) -> None:
+    from optimizer.explore.family import family_ranges, make_family_range, run_family_sensitivity
+    from optimizer.explore.family_paths import load_family_study
+    from optimizer.explore.plots import tornado_figure
+    from optimizer.family_report import family_dict
+
+    console = _console()
+    extra = [_parse_range(text, make_family_range) for text in ranges or []]
+    preflight(results_dir if write else None)
+    study = load_family_study(problem_path)
+    all_ranges = family_ranges(study) + extra
+    with _progress(console, not as_json) as (stage, advance):
+        stage("re-pricing the family optimum", max(1, len(all_ranges)))
+        result = run_family_sensitivity(study, all_ranges, time_limit=time_limit, progress=advance)
+    currency = study.currency
+    options = {
+        "problem": str(problem_path),
+        "family": True,
+        "ranges": ranges or [],
+        "time_limit": time_limit,
+    }
+    payload = {
+        "command": "sensitivity",
+        "options": options,
+        "winner": {
+            "kind": result.design.kind,
+            "design": result.design.summary,
+            "profit": result.base_profit,
+            "objective": "family profit",
+        },
+        "sensitivity": _records(result.table),
+    }
+    folder = None
+    if write:
+        files: dict[str, Writer] = {
+            "sensitivity.csv": _csv_writer(result.table),
+            "winner.json": json_writer(clean(family_dict(result.solution, study.title))),
+            "options.json": json_writer(options),
+            **_figure_writers("tornado", tornado_figure(result, currency), study.title),
+            "problem.toml": copy_writer(problem_path),
+        }
+        folder = write_run_folder(results_dir, "sensitivity", problem_path.stem, files)
+
+    def show() -> None:
+        _say(console, f"family optimum (held fixed): {result.design.kind}")
+        _say(console, f"family profit at the file's values: {money(result.base_profit, currency)}")
+        view = literal_table("Family profit change, largest swing first")
+        for col in ("input", "range", "at low", "at high", "swing", "note"):
+            view.add_column(col, justify="left" if col in ("input", "note") else "right")
+        for row in result.table.itertuples():
+            unit = f" {row.unit}" if row.unit else ""
+            view.add_row(
+                *cells(
+                    row.input,
+                    f"{row.low:.4g} .. {row.high:.4g}{unit}",
+                    _signed(row.change_low),
+                    _signed(row.change_high),
+                    money(row.swing) if math.isfinite(row.swing) else "-",
+                    row.note,
+                )
+            )
+        console.print(view)
+
+    _finish(console, as_json, payload, folder, show)
+
+
+def _uncertainty_family(
+    problem_path, samples, seed, workers, scheduler, time_limit, as_json, results_dir, write
+) -> None:
+    from optimizer.explore.family import run_family_uncertainty
+    from optimizer.explore.family_paths import load_family_study
+    from optimizer.explore.plots import uncertainty_figure
+
+    console = _console()
+    runner = _runner(workers, scheduler)
+    preflight(results_dir if write else None)
+    study = load_family_study(problem_path)
+    with runner.session(), _progress(console, not as_json) as (stage, advance):
+        runner.start()
+        result = run_family_uncertainty(
+            study,
+            samples=samples,
+            seed=seed,
+            runner=runner,
+            time_limit=time_limit,
+            progress=advance,
+            stage=stage,
+        )
+    currency = study.currency
+    options = {
+        "problem": str(problem_path),
+        "family": True,
+        "samples": samples,
+        "seed": seed,
+        "workers": runner.workers,
+        "scheduler": scheduler,
+        "time_limit": time_limit,
+        "inputs": [entry.model_dump() for entry in study.uncertain],
+    }
+    payload = {
+        "command": "uncertainty",
+        "options": options,
+        "summary": _records(result.summary),
+    }
+    folder = None
+    if write:
+        files: dict[str, Writer] = {
+            "summary.csv": _csv_writer(result.summary),
+            "samples.csv": _csv_writer(result.samples_frame()),
+            "designs.json": json_writer(
+                {
+                    f"rank{k + 1}": {"label": label, **_family_rows(d)}
+                    for k, (label, d) in enumerate(zip(result.labels, result.designs, strict=True))
+                }
+            ),
+            "options.json": json_writer(options),
+            **_figure_writers(
+                "profit_distribution", uncertainty_figure(result, currency), study.title
+            ),
+            "problem.toml": copy_writer(problem_path),
+        }
+        folder = write_run_folder(results_dir, "uncertainty", problem_path.stem, files)
+
+    def show() -> None:
+        names = ", ".join(p.text for p in result.inputs)
+        _say(console, f"{samples:,} samples (seed {seed}) of {names} on {runner.description}")
+        view = literal_table(f"Family profit ({currency})")
+        for col in ("rank", "family design", "at file values", "P10", "P50", "P90", "P(best)"):
+            view.add_column(col, justify="left" if col == "family design" else "right")
+        for row, label in zip(result.summary.itertuples(), result.labels, strict=True):
+            view.add_row(
+                *cells(
+                    str(row.rank),
+                    label,
+                    money(row.profit_at_file_values),
+                    money(row.p10),
+                    money(row.p50),
+                    money(row.p90),
+                    f"{100 * row.prob_best:.1f}%",
+                )
+            )
+        console.print(view)
+        for row in result.summary.itertuples():
+            _say(console, f"rank {row.rank}: {row.design_kind}", "dim")
             if row.unbuildable_samples:
                 _say(
                     console,

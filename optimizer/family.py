@@ -35,7 +35,7 @@ from optimizer.problem import (
 
 PRODUCT_KEYS = {"name", "market", "blocks", "packaging", "max_dies", "requirements", "design"}
 # tables a product states for itself and a family file therefore does not hold at the top
-PER_PRODUCT = ("market", "design", "uncertain")
+PER_PRODUCT = ("market", "design")
 
 
 @dataclass(frozen=True)
@@ -95,7 +95,8 @@ def parse_family(data: dict, source: str = "<problem>") -> Family:
                 f"a family file states [{key}] per product; move it into each [[product]] "
                 f"(as [product.{key}])",
             )
-    shared = {k: v for k, v in data.items() if k != "product"}
+    # [[uncertain]] is the family's own (its paths name products); exploration reads it
+    shared = {k: v for k, v in data.items() if k not in ("product", "uncertain")}
     blocks = shared.get("block")
     if not isinstance(blocks, list) or not all(isinstance(b, dict) for b in blocks):
         raise ProblemError(source, "block", "needs [[block]] tables shared by the products")

@@ -642,3 +642,36 @@ def _row_value(row: dict) -> str:
         else:
             text += ", not proven"
     return text
+
+
+@literal_text
+def family_comparison_figure(comparison, currency: str = "") -> Figure:
+    """Family profit of each option's family optimum beside the sum of its products
+    optimised one by one (the gap between the two bars is the reuse premium)."""
+    table = comparison.table[np.isfinite(comparison.table["profit"].to_numpy(dtype=float))]
+    fig, ax = _figure(max(6.0, 1.6 * len(table) + 3), 5.0)
+    x = np.arange(len(table))
+    width = 0.38
+    family = table["profit"].to_numpy(dtype=float)
+    alone = table["alone_profit"].to_numpy(dtype=float)
+    ax.bar(x - width / 2, family, width, color="tab:blue", label="family optimum")
+    ax.bar(x + width / 2, alone, width, color="0.68", label="each product optimised alone")
+    for xi, total, premium in zip(x, family, table["reuse_premium"], strict=True):
+        ax.annotate(
+            f"premium {_money(premium)}",
+            (xi - width / 2, total),
+            ha="center",
+            va="bottom",
+            fontsize=8,
+            xytext=(0, 2),
+            textcoords="offset points",
+        )
+    ax.margins(y=0.12)
+    ax.axhline(0, color="k", lw=0.8)
+    ax.set_xticks(x, [_wrap(str(o), 1.4, 9) for o in table["option"]], fontsize=9)
+    ax.yaxis.set_major_formatter(FuncFormatter(_money))
+    ax.set_ylabel(f"family profit{f' ({currency})' if currency else ''}")
+    _title(fig, "Family optimum of each option against its products designed one by one")
+    ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.0, 1.0))
+    _footer(fig)
+    return fig

@@ -52,11 +52,19 @@ def ranges_from_study(study: Study) -> list[InputRange]:
     return out
 
 
-def make_range(path_text: str, low: object, high: object, option: str = "--range") -> InputRange:
-    """A range typed by a user: numbers in base units or quantities with units."""
-    path = resolve(path_text, option)
+def make_range(
+    path_text: str,
+    low: object,
+    high: object,
+    option: str = "--range",
+    resolver: Callable = resolve,
+    reader: Callable = parse_value,
+) -> InputRange:
+    """A range typed by a user: numbers in base units or quantities with units
+    (``resolver`` and ``reader``: the path grammar, a family file's for families)."""
+    path = resolver(path_text, option)
     try:
-        lo, hi = parse_value(path, low), parse_value(path, high)
+        lo, hi = reader(path, low), reader(path, high)
     except PathError as exc:
         raise ProblemError(option, path.text, str(exc)) from None
     if not lo < hi:

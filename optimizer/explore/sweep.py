@@ -70,16 +70,19 @@ def make_axis(
     log: bool = False,
     option: str = "--vary",
     steps_option: str = "--steps",
+    resolver: Callable = resolve,
+    reader: Callable = parse_value,
 ) -> Axis:
     """Check a sweep request and build its :class:`Axis` (raises ProblemError).
 
     ``low`` and ``high`` are numbers in the field's base unit or quantity text with a
-    unit (``"0.05 /cm^2"``).
+    unit (``"0.05 /cm^2"``). ``resolver`` and ``reader`` resolve the path and read the
+    values (family files pass their own grammar).
     """
-    path = resolve(path_text, option)
+    path = resolver(path_text, option)
     try:
-        lo = parse_value(path, low)
-        hi = parse_value(path, high)
+        lo = reader(path, low)
+        hi = reader(path, high)
     except PathError as exc:
         raise ProblemError(option, path.text, str(exc)) from None
     if steps < 2:
@@ -229,21 +232,29 @@ def locate_crossing(task: CrossingTask) -> Crossing:
         p_before, p_after = prices.profit[0]
         return p_after - p_before, p_before
 
-    to_u = math.log if task.log else (lambda x: x)
-    from_u = math.exp if task.log else (lambda u: u)
-    f_lo, _ = at(task.low)
-    f_hi, _ = at(task.high)
+    return find_crossing(at, task.low, task.high, task.log)
+
+
+def find_crossing(
+    at: Callable[[float], tuple[float, float]], low: float, high: float, log: bool
+) -> Crossing:
+    """Root of the profit difference ``at(x)[0]`` on [low, high] (``at(x)[1]``: the
+    profit there); shared by single-product and family sweeps."""
+    to_u = math.log if log else (lambda x: x)
+    from_u = math.exp if log else (lambda u: u)
+    f_lo, _ = at(low)
+    f_hi, _ = at(high)
     if math.isfinite(f_lo) and math.isfinite(f_hi) and f_lo * f_hi <= 0:
         if f_lo == 0:
-            x = task.low
+            x = low
         elif f_hi == 0:
-            x = task.high
+            x = high
         else:
             u = brentq(
                 lambda u: at(from_u(u))[0],
-                to_u(task.low),
-                to_u(task.high),
-                xtol=1e-12 * max(1.0, abs(to_u(task.high))),
+                to_u(low),
+                to_u(high),
+                xtol=1e-12 * max(1.0, abs(to_u(high))),
                 rtol=1e-12,
             )
             x = from_u(u)
@@ -251,8 +262,8 @@ def locate_crossing(task: CrossingTask) -> Crossing:
     # Not bracketed (a design unbuildable at one end, or round-off): interpolate the
     # difference where both ends are known, else give up on a value.
     if math.isfinite(f_lo) and math.isfinite(f_hi) and f_lo != f_hi:
-        u = to_u(task.low) + (to_u(task.high) - to_u(task.low)) * f_lo / (f_lo - f_hi)
-        x = from_u(min(max(u, to_u(task.low)), to_u(task.high)))
+        u = to_u(low) + (to_u(high) - to_u(low)) * f_lo / (f_lo - f_hi)
+        x = from_u(min(max(u, to_u(low)), to_u(high)))
         return Crossing(x, at(x)[1], "interpolated")
     return Crossing(float("nan"), float("nan"), "grid")
 
@@ -444,7 +455,10 @@ def _run_sweep(
     return SweepResult(axes, points, crossovers, designs, curve_frame, share, strategy, solves)
 
 
-def _crossing_jobs(study, axes, grids, points, designs):
+def _crossing_jobs(study, axes, grids, points, designs, task_type=None):
+    """Rows and crossing tasks (``task_type``, default :class:`CrossingTask`) for every
+    change of winning kind between neighbouring grid points."""
+    task_type = task_type or CrossingTask
     rows, tasks = [], []
     nx = len(grids[0])
     ny = len(grids[1]) if len(axes) == 2 else 1
@@ -471,7 +485,7 @@ def _crossing_jobs(study, axes, grids, points, designs):
             }
         )
         tasks.append(
-            CrossingTask(
+            task_type(
                 study.data,
                 study.source,
                 designs[before],
@@ -506,12 +520,17 @@ def _crossing_jobs(study, axes, grids, points, designs):
     return rows, tasks
 
 
-def _curves(study, axis, grid, designs, runner, progress, stage) -> pd.DataFrame:
+def _curves(
+    study, axis, grid, designs, runner, progress, stage, task_type=None, price=None
+) -> pd.DataFrame:
+    """Profit of the best design of each winning kind at every grid point (tasks of
+    ``task_type`` run by ``price``; default: single-product designs)."""
+    task_type, price = task_type or PriceTask, price or price_scenarios
     ordered = list(designs.items())
     fixed = tuple(design for _, design in ordered)
     parts = chunks(len(grid), max(1, runner.workers if not runner.scheduler else 8) * 2)
     tasks = [
-        PriceTask(
+        task_type(
             study.data,
             study.source,
             fixed,
@@ -522,7 +541,7 @@ def _curves(study, axis, grid, designs, runner, progress, stage) -> pd.DataFrame
     ]
     if stage:
         stage("pricing winners along the axis", len(tasks))
-    priced = runner.map(price_scenarios, tasks, progress)
+    priced = runner.map(price, tasks, progress)
     profit = np.vstack([p for p, _ in priced])
     frame = pd.DataFrame({axis.path.text: grid})
     kinds: dict[str, list[int]] = {}

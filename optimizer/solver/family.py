@@ -9,10 +9,12 @@ its one-time yield-improvement spend, NRE(library) that of every distinct die de
 once, OT_p the one-time cost of process p's defect-density target once (a process has
 one target for the family, so products on one process must agree on it).
 
-The proof. A die design is used by at most P products and a process by at most P, so
-NRE(library) >= sum_i NRE_i / P and sum_p OT_p >= sum_i S_i / P, and F <= sum_i
-pi_i(d_i), where pi_i is product i's profit with its die NRE and one-time target costs
-scaled by 1/P (a problem of the same form, solved by the ordinary search). With U a
+The proof. A die design is used by at most h(die) products, those whose block counts
+can hold it, and a process by at most P, so NRE(library) >= sum_i sum_{die in d_i}
+nre(die) / h(die) and sum_p OT_p >= sum_i S_i / P, and F <= sum_i pi_i(d_i), where
+pi_i is product i's profit with each die's NRE divided by its h and one-time target
+costs by P (the same problem with adjusted die prices, solved by the ordinary search:
+its bound and its pricing both read the adjusted prices). With U a
 family design's profit, a better family holds for every i a design with
 pi_i(d_i) >= U - sum_{j != i} max pi_j: each product's search lists every such design
 (a search to a cost ceiling), each is priced exactly, and an integer program over the
@@ -29,6 +31,7 @@ worse with its dominator in every product that used it.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import time
 from dataclasses import dataclass, field
@@ -183,13 +186,14 @@ def _combine(priced: list[_Priced]) -> tuple[float, float, float]:
 
 
 def scaled_problem(problem: Problem, share: int, bins_from: list[Problem]) -> Problem:
-    """``problem`` with its die NRE and one-time target costs divided by ``share``, and
-    every salvage bin of ``bins_from`` (on blocks it holds) added at zero demand: they
-    earn nothing and only keep the dies another product's bins would want."""
+    """``problem`` with its one-time target costs divided by ``share``, and every
+    salvage bin of ``bins_from`` (on blocks it holds) added at zero demand: they earn
+    nothing and only keep the dies another product's bins would want. (Die NRE is split
+    per die, by :func:`nre_split`.)"""
     f = 1.0 / share
     processes = []
     for p in problem.process:
-        update: dict = {"mask_set_cost": p.mask_set_cost * f}
+        update: dict = {}
         curve = p.defect_reduction
         if curve is not None:
             if curve.form == "log_ratio":
@@ -200,12 +204,6 @@ def scaled_problem(problem: Problem, share: int, bins_from: list[Problem]) -> Pr
                 points = [(d, c * f, w) for d, c, w in curve.points]
                 update["defect_reduction"] = curve.model_copy(update={"points": points})
         processes.append(p.model_copy(update=update))
-    design_cost = problem.design_cost.model_copy(
-        update={
-            "per_die_design": problem.design_cost.per_die_design * f,
-            "per_mm2": problem.design_cost.per_mm2 * f,
-        }
-    )
     present = {b.name for b in problem.block}
     bins = list(problem.market.salvage_bin)
     names = {b.name for b in bins}
@@ -215,9 +213,23 @@ def scaled_problem(problem: Problem, share: int, bins_from: list[Problem]) -> Pr
                 bins.append(b.model_copy(update={"demand": 0.0}))
                 names.add(b.name)
     market = problem.market.model_copy(update={"salvage_bin": bins})
-    return problem.model_copy(
-        update={"process": processes, "design_cost": design_cost, "market": market}
+    return problem.model_copy(update={"process": processes, "market": market})
+
+
+def nre_split(problem: Problem, problems: list[Problem]):
+    """A candidate-price adjustment (see ``build_candidates``) dividing each die's NRE
+    by the number of products whose block counts could hold it: no more products can
+    share it, so the library pays at least that share per product using it."""
+    names = [b.name for b in problem.block]
+    counts = np.array(
+        [[next((b.count for b in q.block if b.name == n), 0) for n in names] for q in problems]
     )
+
+    def adjust(prices, process, instances, spares, repairs, critical):
+        holders = (instances[:, None, :] <= counts[None, :, :]).all(axis=2).sum(axis=1)
+        return dataclasses.replace(prices, nre=prices.nre / np.maximum(holders, 1))
+
+    return adjust
 
 
 def solve_family(
@@ -252,16 +264,23 @@ def solve_family(
     if not math.isfinite(incumbent):
         # the products' own optima disagree on a shared process's target
         incumbent = -math.inf
-    # 2. each product's bound with shared costs split P ways
+    # 2. each product's bound with shared costs split among the products that could share
     scaled = [scaled_problem(p, share, problems) for p in problems]
     evaluators = [Evaluator(p) for p in scaled]
     candidates = []
     bounds = []
     for problem, evaluator in zip(scaled, evaluators, strict=True):
         contents = enumerate_contents(evaluator)
+        split = nre_split(problem, problems)
         cands = {
             g: build_candidates(
-                evaluator, g, contents, depth=1, mandate_metrics=True, deadline=deadline
+                evaluator,
+                g,
+                contents,
+                depth=1,
+                mandate_metrics=True,
+                deadline=deadline,
+                adjust=split,
             )
             for g in range(len(problem.packaging))
         }
@@ -293,7 +312,8 @@ def solve_family(
             deadline,
             log,
         )
-        pick, value = _best_combination(lists)
+        pick, value, exact = _best_combination(lists, deadline)
+        complete &= exact
         if value > incumbent:
             chosen = [lists[i][j] for i, j in enumerate(pick)]
             incumbent = value
@@ -306,6 +326,15 @@ def solve_family(
             break
         delta = upper - incumbent if math.isfinite(incumbent) else 4 * delta
     profit, saved_nre, saved_targets = _combine(chosen)
+    if not math.isfinite(profit):
+        raise ProblemError(
+            source,
+            "product",
+            "no family design was found that holds each shared process to one "
+            "defect-density target"
+            + (" within the time limit; allow more time" if not proven else "")
+            + "; check the products' requirements and each process's defect_reduction",
+        )
     if not math.isclose(profit, incumbent, rel_tol=1e-9, abs_tol=1e-6):
         raise InvariantViolation(
             f"family: combination says {incumbent!r}, the designs price at {profit!r}"
@@ -374,6 +403,9 @@ def _lists(
         member = Evaluator(problems[i])
         items = []
         for sel in sels:
+            if deadline is not None and time.perf_counter() > deadline:
+                complete = False  # designs left unpriced: the list is not whole
+                break
             cset = candidates[i][sel.packaging_index]
             specs = selection_specs(evaluator, cset, sel)
             packaging = problem.packaging[sel.packaging_index].name
@@ -398,9 +430,13 @@ def _library(names: list[str], designs: list[DesignResult]) -> list[LibraryDie]:
     return sorted(out.values(), key=lambda d: (-len(d.users), -d.nre))
 
 
-def _best_combination(lists: list[list[_Priced]]) -> tuple[list[int], float]:
+def _best_combination(
+    lists: list[list[_Priced]], deadline: float | None = None
+) -> tuple[list[int], float, bool]:
     """One design per product maximising the family profit, by an integer program:
-    x (a design per product), u (a die design paid once), z (a target per process)."""
+    x (a design per product), u (a die design paid once), z (a target per process).
+    Returns the picks, their family profit and whether the program was solved to
+    optimality (not stopped by the deadline)."""
     dies: dict[tuple, int] = {}
     targets: dict[tuple[str, float], int] = {}
     x_of = []
@@ -488,14 +524,17 @@ def _best_combination(lists: list[list[_Priced]]) -> tuple[list[int], float]:
     lp.a_matrix_.index_ = csc.indices
     lp.a_matrix_.value_ = csc.data
     lp.integrality_ = [highspy.HighsVarType.kInteger] * n
+    if deadline is not None:
+        h.setOptionValue("time_limit", max(deadline - time.perf_counter(), 0.01))
     h.passModel(lp)
     h.run()
-    if h.getModelStatus() != highspy.HighsModelStatus.kOptimal:
-        return [], -math.inf
+    status = h.getModelStatus()
+    if status != highspy.HighsModelStatus.kOptimal and h.getInfo().primal_solution_status != 2:
+        return [], -math.inf, False
     x = np.asarray(h.getSolution().col_value)
     pick = [int(np.argmax(x[x_of[i]])) for i in range(len(lists))]
     value = _combine([lists[i][j] for i, j in enumerate(pick)])[0]
-    return pick, value
+    return pick, value, status == highspy.HighsModelStatus.kOptimal
 
 
 __all__ = [
