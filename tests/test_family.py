@@ -181,8 +181,10 @@ def test_random_families_equal_brute_force(seed):
         assert found.profit >= solo - RTOL * abs(found.profit)
 
 
-@pytest.mark.parametrize("seed", [1, 3, 8, 15, 24, 26, 31, 34])
+@pytest.mark.parametrize("seed", [1, 3, 8, 15, 24, 26, 31, 34, 146])
 def test_random_three_product_families_equal_brute_force(seed):
+    # seed 146: the combination program, solved on whole profits, once stopped 6 USD
+    # (7e-9 of the profit) short of the best family, within its own tolerances
     family = parse_family(random_family(seed, 3, budget=60), f"seed{seed}")
     found = solve_family(family)
     assert found.proven

@@ -9,12 +9,16 @@ its one-time yield-improvement spend, NRE(library) that of every distinct die de
 once, OT_p the one-time cost of process p's defect-density target once (a process has
 one target for the family, so products on one process must agree on it).
 
-The proof. A die design is used by at most h(die) products, those whose block counts
-can hold it, and a process by at most P, so NRE(library) >= sum_i sum_{die in d_i}
-nre(die) / h(die) and sum_p OT_p >= sum_i S_i / P, and F <= sum_i pi_i(d_i), where
-pi_i is product i's profit with each die's NRE divided by its h and one-time target
-costs by P (the same problem with adjusted die prices, solved by the ordinary search:
-its bound and its pricing both read the adjusted prices). With U a
+The proof. Give each die design's NRE to the products whose block counts could hold
+it in shares w_i(die) >= 0 summing to one, and each process's one-time target cost to
+all P products equally. A family pays every die it uses once, so NRE(library) >=
+sum_i sum_{die in d_i} w_i(die) nre(die), likewise for the targets, and F <= sum_i
+pi_i(d_i), where pi_i is product i's profit with each die's NRE scaled by its share and
+one-time target costs by 1/P (the same problem with adjusted die prices, solved by the
+ordinary search: its bound and its pricing both read the adjusted prices). Any shares
+give a valid bound (they are Lagrange multipliers of "a die used is paid for"); the
+solve starts from equal shares and takes subgradient steps towards the products whose
+bound designs use each die, keeping the lowest bound. With U a
 family design's profit, a better family holds for every i a design with
 pi_i(d_i) >= U - sum_{j != i} max pi_j: each product's search lists every such design
 (a search to a cost ceiling), each is priced exactly, and an integer program over the
@@ -285,12 +289,45 @@ def solve_family(
             for g in range(len(problem.packaging))
         }
         candidates.append(cands)
-        best = milp_search(evaluator, top=1, candidates=cands, deadline=deadline)
-        # no design of the product earns more in the split-cost problem (inf: unknown)
-        bounds.append(profit_bound(best, evaluator) if best.ranked or best.proven else math.inf)
-        if not best.proven:
-            log.append(f"bound of '{problem.title}' not proven within the time limit")
-    upper = sum(bounds)
+    # the NRE shares are multipliers: any split of each die's NRE over the products gives
+    # a bound; a few subgradient steps move each die's NRE towards the products whose
+    # bound designs use it (the bound falls to the best found)
+    shares = _Shares(scaled, problems, candidates)
+    bounds, upper = [], math.inf
+    best_fractions = shares.fractions()
+    for step in range(max(SUBGRADIENT_STEPS, 1)):
+        found = [
+            milp_search(ev, top=1, candidates=c, deadline=deadline)
+            for ev, c in zip(evaluators, candidates, strict=True)
+        ]
+        now = [
+            profit_bound(f, ev) if f.proven else math.inf
+            for f, ev in zip(found, evaluators, strict=True)
+        ]
+        if sum(now) < upper:
+            upper, bounds, best_fractions = sum(now), now, shares.fractions()
+        picks = [f.ranked[0].selection if f.ranked else None for f in found]
+        if any(p is None for p in picks) or not math.isfinite(sum(now)):
+            break
+        # the bound designs are a family design too
+        items = [
+            _price(
+                problems[i],
+                _design_of(evaluators[i], problems[i], candidates[i], sel, names[i], source),
+            )
+            for i, sel in enumerate(picks)
+        ]
+        value = _combine(items)[0]
+        if value > incumbent:
+            incumbent, chosen = value, items
+        if upper - incumbent <= PROFIT_RTOL * max(abs(incumbent), 1.0):
+            break
+        if not shares.step(picks, 0.5 / (step + 1)):
+            break
+        if deadline is not None and time.perf_counter() > deadline:
+            break
+    shares.set(best_fractions)
+    log.append(f"bound {upper:.10g} after the NRE shares' steps; family found {incumbent:.10g}")
     # 3. every design of each product that could be in a better family: those within
     # delta of their product's bound; proven once a combination is within delta of the
     # sum of the bounds (with no incumbent yet, delta grows until one is)
@@ -341,7 +378,7 @@ def solve_family(
         )
     bound = profit if proven else max(profit, upper)
     lists_sizes = [len(x) for x in lists]
-    if profit > upper * (1 + 1e-9) + 1e-6:
+    if profit > upper + 1e-9 * abs(upper) + 1e-6:
         raise InvariantViolation(f"family: profit {profit!r} above its own bound {upper!r}")
     designs = [c.design for c in chosen]
     return FamilySolution(
@@ -358,6 +395,105 @@ def solve_family(
         seconds=time.perf_counter() - start,
         log=log,
         stats={"listed": lists_sizes, "bounds": bounds},
+    )
+
+
+# subgradient steps on the products' NRE shares before the listing
+SUBGRADIENT_STEPS = 8
+
+
+def _design_of(evaluator, member: Problem, cands, sel, name: str, source: str) -> DesignResult:
+    """A selection of a product's split-cost search, priced on the product itself."""
+    specs = selection_specs(evaluator, cands[sel.packaging_index], sel)
+    packaging = evaluator.problem.packaging[sel.packaging_index].name
+    return evaluate_specs(Evaluator(member), specs, packaging, name, source)
+
+
+class _Shares:
+    """Each candidate die's NRE share per product, written into the candidates' prices.
+
+    A die design (its key) may be held by several products; its NRE is split over those
+    holders by fractions summing to one (initially equal), any split giving a valid
+    bound (see the module docstring).
+    """
+
+    def __init__(self, scaled: list[Problem], problems: list[Problem], candidates: list[dict]):
+        self.candidates = candidates
+        self.raw: list[dict] = []  # per product and packaging: full NRE of each candidate
+        self.keys: list[dict] = []  # ... and its die key
+        self.holders: dict[tuple, np.ndarray] = {}
+        self.frac: dict[tuple, np.ndarray] = {}
+        for problem, cands in zip(scaled, candidates, strict=True):
+            names = [b.name for b in problem.block]
+            counts = np.array(
+                [
+                    [next((b.count for b in q.block if b.name == n), 0) for n in names]
+                    for q in problems
+                ]
+            )
+            raw, keys = {}, {}
+            for g, cset in cands.items():
+                held = (cset.instances[:, None, :] <= counts[None, :, :]).all(axis=2)
+                h = np.maximum(held.sum(axis=1), 1)
+                raw[g] = cset.prices.nre * h
+                keys[g] = [_candidate_key(problem, cset, c) for c in range(len(cset))]
+                for c, key in enumerate(keys[g]):
+                    self.holders.setdefault(key, held[c])
+            self.raw.append(raw)
+            self.keys.append(keys)
+
+    def fractions(self) -> dict[tuple, np.ndarray]:
+        return {k: v.copy() for k, v in self.frac.items()}
+
+    def _frac(self, key: tuple) -> np.ndarray:
+        if key not in self.frac:
+            held = self.holders[key].astype(float)
+            self.frac[key] = held / max(held.sum(), 1.0)
+        return self.frac[key]
+
+    def set(self, fractions: dict[tuple, np.ndarray]) -> None:
+        self.frac = {k: v.copy() for k, v in fractions.items()}
+        for i, cands in enumerate(self.candidates):
+            for g, cset in cands.items():
+                shares = np.array([self._frac(k)[i] for k in self.keys[i][g]])
+                cset.prices.nre[:] = self.raw[i][g] * shares
+
+    def step(self, picks, size: float) -> bool:
+        """Move each used die's NRE towards the products whose bound designs use it;
+        whether anything moved."""
+        users: dict[tuple, set[int]] = {}
+        for i, sel in enumerate(picks):
+            for c, _ in sel.dies:
+                users.setdefault(self.keys[i][sel.packaging_index][c], set()).add(i)
+        moved = False
+        for key, who in users.items():
+            held = self.holders[key]
+            frac = self._frac(key).copy()
+            target = np.zeros(held.size)
+            target[list(who)] = 1.0 / len(who)
+            new = np.where(held, (1 - size) * frac + size * target, 0.0)
+            new /= max(new.sum(), 1e-300)
+            if not np.allclose(new, frac, atol=1e-12):
+                moved = True
+            self.frac[key] = new
+        self.set(self.frac)
+        return moved
+
+
+def _candidate_key(problem: Problem, cset, c: int) -> tuple:
+    """The die key (see :func:`die_key`) of candidate ``c``."""
+    names = [b.name for b in problem.block]
+    sigma = float(cset.prices.sigma_margin[c])
+    return (
+        problem.process[int(cset.process[c])].name,
+        tuple(
+            sorted((names[b], int(cset.instances[c, b])) for b in np.flatnonzero(cset.instances[c]))
+        ),
+        tuple(sorted((names[b], int(cset.spares[c, b])) for b in np.flatnonzero(cset.spares[c]))),
+        tuple(sorted((names[b], int(cset.repairs[c, b])) for b in np.flatnonzero(cset.repairs[c]))),
+        sigma if math.isfinite(sigma) else None,
+        int(cset.critical_option[c]),
+        round(float(cset.prices.area_mm2[c]), 9),
     )
 
 
@@ -448,6 +584,7 @@ def _best_combination(
             for process, (density, _) in item.targets.items():
                 targets.setdefault((process, density), len(targets))
     n_x = sum(len(items) for items in lists)
+    best_own = [max(item.own for item in items) for items in lists]
     n_u, n_z = len(dies), len(targets)
     n = n_x + n_u + n_z
     cost = np.zeros(n)
@@ -458,7 +595,10 @@ def _best_combination(
     for i, items in enumerate(lists):
         for j, item in enumerate(items):
             xi = x_of[i][j]
-            cost[xi] = -item.own
+            # own profit relative to the product's best listed one: the program then
+            # works on differences of the size of the NRE, not of the revenue, so its
+            # tolerances stay far below the tie tolerance
+            cost[xi] = -(item.own - best_own[i])
             rows.append(r)
             cols.append(xi)
             vals.append(1.0)
@@ -510,6 +650,12 @@ def _best_combination(
     h.setOptionValue("output_flag", False)
     h.setOptionValue("mip_rel_gap", 0.0)
     h.setOptionValue("mip_abs_gap", 0.0)
+    for name in (
+        "mip_feasibility_tolerance",
+        "primal_feasibility_tolerance",
+        "dual_feasibility_tolerance",
+    ):
+        h.setOptionValue(name, 1e-9)
     lp = highspy.HighsLp()
     lp.num_col_ = n
     lp.num_row_ = r
