@@ -357,6 +357,9 @@ def check(problem_path: ProblemPath) -> None:
     if _is_family(problem):
         _check_family(problem_path, problem)
         return
+    plan = None
+    if isinstance(problem, _LifeFile):
+        plan, problem = problem.plan, problem.problem
     check_uncertain(problem, str(problem_path))
     # the evaluator (numba, scipy) loads only when there is something to price
     priced = problem.design or problem.requirements.any()
@@ -366,6 +369,15 @@ def check(problem_path: ProblemPath) -> None:
     for result in results:
         for violation in result.violations:
             console.print(Text(f"design '{result.design}' breaks rule: {violation}", style="red"))
+    if plan is not None:
+        varied = ", ".join(t.path for t in plan.tracks) or "volume only"
+        console.print(
+            Text(
+                f"life plan: {plan.n} {plan.period}s ({plan.labels[0]}-{plan.labels[-1]}), "
+                f"{sum(plan.volumes):,.0f} units, discount rate {plan.discount_rate:g} per "
+                f"year; varies: {varied}"
+            )
+        )
     console.print(Text(f"ok: {problem_path} is valid."))
 
 
@@ -405,6 +417,9 @@ def evaluate(
     problem = _load(problem_path)
     if _is_family(problem):
         _evaluate_family(problem_path, problem, design, as_json)
+        return
+    if isinstance(problem, _LifeFile):
+        _evaluate_life(problem_path, problem.plan, design, as_json)
         return
     if not problem.design:
         raise ProblemError(
@@ -540,6 +555,8 @@ def solve(
     preflight(results_dir if write else None)
     options = _requirement_options(require_die_yield, require_sigma, require_defect_level)
     problem = _load(problem_path)
+    if isinstance(problem, _LifeFile):
+        raise _life_refused(problem_path, "solve")
     if _is_family(problem):
         _family_options(ctx, problem_path)
         explicit = _given(ctx, "method")
@@ -807,6 +824,14 @@ def _load(problem_path: Path):
     from optimizer.problem import check_feasible, parse_problem, read_problem_data
 
     data, source = read_problem_data(problem_path)
+    from optimizer.life import has_life
+
+    if has_life(data) and not is_family(data):
+        from optimizer.life import life_plan
+
+        plan = life_plan(data, source)
+        check_feasible(plan.base, source)
+        return _LifeFile(plan)
     if is_family(data):
         if "uncertain" in data:
             # a family's [[uncertain]] entries sit at the top level (exploration reads them)
@@ -817,6 +842,24 @@ def _load(problem_path: Path):
     problem = parse_problem(data, source)
     check_feasible(problem, source)
     return problem
+
+
+class _LifeFile:
+    """A problem file with a [life] plan: its base problem and the plan."""
+
+    def __init__(self, plan):
+        self.plan = plan
+        self.problem = plan.base
+
+
+def _life_refused(problem_path: Path, command: str) -> ProblemError:
+    return ProblemError(
+        str(problem_path),
+        "life",
+        f"`dieplan {command}` does not yet take a [life] plan; `dieplan evaluate` prices the "
+        "file's [[design]] entries over the life, and without [life] the file solves for "
+        "one set of numbers",
+    )
 
 
 def _is_family(loaded) -> bool:
@@ -966,6 +1009,36 @@ def _evaluate_family(problem_path: Path, family, only: str | None, as_json: bool
     console.print(report.CAUTION, style="dim", markup=False)
 
 
+def _evaluate_life(problem_path: Path, plan, only: str | None, as_json: bool) -> None:
+    from optimizer import life_report
+    from optimizer.life_value import design_life_value
+
+    problem = plan.base
+    if not problem.design:
+        raise ProblemError(
+            str(problem_path), "design", "the file has no [[design]] to evaluate; add one"
+        )
+    names = [d.name for d in problem.design]
+    if only is not None and only not in names:
+        raise ProblemError(
+            "--design", "", f"no design named '{short(only)}' in {problem_path}; use one of {names}"
+        )
+    chosen = [only] if only is not None else names
+    values = sorted(
+        (design_life_value(plan, name, str(problem_path)) for name in chosen),
+        key=lambda v: -v.npv,
+    )
+    if as_json:
+        payload = {"problem": problem.title, "life": [life_report.life_dict(v) for v in values]}
+        typer.echo(json_text(payload))
+        return
+    console = _console()
+    for value in values:
+        console.print(life_report.life_view(value, problem.market.currency))
+        console.print()
+    console.print(report.CAUTION, style="dim", markup=False)
+
+
 # solve options a family solve does not take, and what to do instead
 FAMILY_REFUSES = {
     "top": ("--top", "a family solve gives one design per product"),
@@ -1101,6 +1174,8 @@ def profit_curve_command(
     _requirement_options(require_die_yield, None, None)
     preflight(results_dir)
     problem = _load(problem_path)
+    if isinstance(problem, _LifeFile):
+        raise _life_refused(problem_path, "profit-curve")
     if _is_family(problem):
         raise ProblemError(
             str(problem_path),
