@@ -556,7 +556,8 @@ def solve(
     options = _requirement_options(require_die_yield, require_sigma, require_defect_level)
     problem = _load(problem_path)
     if isinstance(problem, _LifeFile):
-        raise _life_refused(problem_path, "solve")
+        _solve_life(problem_path, problem.plan, deadline, as_json, results_dir if write else None)
+        return
     if _is_family(problem):
         _family_options(ctx, problem_path)
         explicit = _given(ctx, "method")
@@ -856,9 +857,10 @@ def _life_refused(problem_path: Path, command: str) -> ProblemError:
     return ProblemError(
         str(problem_path),
         "life",
-        f"`dieplan {command}` does not yet take a [life] plan; `dieplan evaluate` prices the "
-        "file's [[design]] entries over the life, and without [life] the file solves for "
-        "one set of numbers",
+        f"`dieplan {command}` does not yet take a [life] plan; `dieplan solve` finds the "
+        "design with the most NPV over the life and `dieplan evaluate` prices the file's "
+        "[[design]] entries over it; without [life] the file is priced for one set of "
+        "numbers",
     )
 
 
@@ -1036,6 +1038,53 @@ def _evaluate_life(problem_path: Path, plan, only: str | None, as_json: bool) ->
     for value in values:
         console.print(life_report.life_view(value, problem.market.currency))
         console.print()
+    console.print(report.CAUTION, style="dim", markup=False)
+
+
+def _solve_life(problem_path: Path, plan, deadline, as_json: bool, results_dir) -> None:
+    from optimizer import life_report
+    from optimizer.solver.life import solve_life
+
+    limit = None if deadline is None else max(0.0, deadline - time.perf_counter())
+    solution = solve_life(plan, time_limit=limit, source=str(problem_path))
+    currency = plan.base.market.currency
+    values = {"life optimum": solution.best}
+    if solution.first_period_best is not None:
+        first = solution.first_period_best
+        if life_report.design_line(first.periods[0].result) != life_report.design_line(
+            solution.best.periods[0].result
+        ):
+            values[f"picked on {plan.labels[0]} alone"] = first
+    payload = {
+        "problem": plan.base.title,
+        "npv": solution.best.npv,
+        "proven": solution.proven,
+        "npv_bound": solution.npv_bound,
+        "gap": solution.gap,
+        "seconds": solution.seconds,
+        "design": solution.best.periods[0].result.to_dict(),
+        "life": {name: life_report.life_dict(v) for name, v in values.items()},
+    }
+    folder = None
+    if results_dir is not None:
+        figure = life_report.cumulative_figure(values, currency, plan.base.title)
+        files = {
+            "life.json": text_writer(json_text(payload) + "\n"),
+            "periods.csv": text_writer(life_report.periods_csv(values)),
+            "cumulative_value.png": figure_writer(figure, dpi=130),
+            "cumulative_value.svg": figure_writer(figure),
+            "problem.toml": copy_writer(problem_path),
+        }
+        folder = write_run_folder(results_dir, "solve", problem_path.stem, files)
+    if as_json:
+        if folder is not None:
+            payload["run_folder"] = str(folder)
+        typer.echo(json_text(payload))
+        return
+    console = _console()
+    console.print(life_report.solution_view(solution, currency))
+    if folder is not None:
+        console.print(Text(f"wrote {folder}"))
     console.print(report.CAUTION, style="dim", markup=False)
 
 

@@ -50,18 +50,28 @@ class LifeValue:
 
 def design_life_value(plan: LifePlan, design_name: str, source: str = "<problem>") -> LifeValue:
     """The named [[design]] of the file priced over every period of ``plan``."""
+
+    def price(problem):
+        return evaluate_design(Evaluator(problem), problem.design_named(design_name), source)
+
+    return life_value(plan, price, design_name)
+
+
+def life_value(plan: LifePlan, price, name: str) -> LifeValue:
+    """A design over the life, ``price(period_problem) -> DesignResult`` pricing it in
+    one period."""
     rows: list[tuple] = []
     one_time = None
     for period in periods(plan.base, plan):
         problem = period.problem
-        result = evaluate_design(Evaluator(problem), problem.design_named(design_name), source)
+        result = price(problem)
         spent = result.nre + result.improvement_spend
         if one_time is None:
             one_time = spent
         elif not math.isclose(spent, one_time, rel_tol=1e-12, abs_tol=1e-6):
             # the plan keeps one-time costs equal in every period (targets scale with D)
             raise InvariantViolation(
-                f"life: design '{design_name}' pays {spent!r} once in {period.label}, "
+                f"life: design '{name}' pays {spent!r} once in {period.label}, "
                 f"{one_time!r} in the first period"
             )
         rows.append((period, result, result.profit + spent))
@@ -90,7 +100,7 @@ def design_life_value(plan: LifePlan, design_name: str, source: str = "<problem>
         raise InvariantViolation(f"life: cumulative value {running!r} differs from NPV {npv!r}")
     back = plan_payback(plan, cash, one_time)
     return LifeValue(
-        design_name,
+        name,
         out,
         one_time,
         factor,
@@ -99,4 +109,4 @@ def design_life_value(plan: LifePlan, design_name: str, source: str = "<problem>
     )
 
 
-__all__ = ["LifeValue", "PeriodValue", "design_life_value"]
+__all__ = ["LifeValue", "PeriodValue", "design_life_value", "life_value"]

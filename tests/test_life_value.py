@@ -90,7 +90,7 @@ def test_learning_lifts_yield_and_payback_follows_the_cumulative_value():
     assert value.payback == first
 
 
-def test_command_line_evaluates_over_the_life_and_solve_says_what_to_use(tmp_path):
+def test_command_line_evaluates_over_the_life_and_says_what_else_to_use(tmp_path):
     data = _data({"period": "year", "volumes": [300000, 400000, 300000], "discount_rate": 0.1})
     text = DEMO.read_text() + (
         '\n[life]\nperiod = "year"\nvolumes = [300000, 400000, 300000]\ndiscount_rate = 0.1\n'
@@ -103,8 +103,22 @@ def test_command_line_evaluates_over_the_life_and_solve_says_what_to_use(tmp_pat
     direct = design_life_value(life_plan(data), "monolithic")
     assert payload["life"][0]["npv"] == pytest.approx(direct.npv, rel=1e-12)
     assert [p["period"] for p in payload["life"][0]["periods"]] == ["Y1", "Y2", "Y3"]
-    out = runner.invoke(app, ["solve", str(path), "--no-write"])
+    out = runner.invoke(app, ["profit-curve", str(path), "--results", str(tmp_path / "r")])
     assert out.exit_code == 2
     assert "Traceback" not in out.output and "dieplan evaluate" in out.stderr
+    assert not (tmp_path / "r").exists() or not any((tmp_path / "r").iterdir())
     out = runner.invoke(app, ["check", str(path)])
     assert out.exit_code == 0 and "life plan: 3 years" in out.stdout
+
+
+def test_exploration_commands_say_they_do_not_take_a_life_plan(tmp_path):
+    path = tmp_path / "life.toml"
+    path.write_text(
+        DEMO.read_text() + '\n[life]\nperiod = "year"\nvolumes = [1000000]\ndiscount_rate = 0\n'
+    )
+    for command in (["sensitivity", str(path)], ["uncertainty", str(path)]):
+        out = runner.invoke(app, [*command, "--results", str(tmp_path / "r")])
+        assert out.exit_code == 2, out.output
+        assert out.stderr.count("\n") == 1 and "[life] plan" in out.stderr
+        assert "Traceback" not in out.output
+        assert not (tmp_path / "r").exists()

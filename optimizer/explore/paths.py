@@ -445,6 +445,13 @@ def load_study(path: str | Path) -> Study:
     "no feasible design" is a finding), so only the file gets ``check_feasible``.
     """
     data, source = read_problem_data(path)
+    if isinstance(data, dict) and "life" in data:
+        raise ProblemError(
+            source,
+            "life",
+            "the exploration commands do not yet take a [life] plan; `dieplan solve` and "
+            "`dieplan evaluate` do; remove [life] to explore one set of numbers",
+        )
     study = study_from_data(data, source)
     check_feasible(study.problem, source)
     return study

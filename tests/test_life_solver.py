@@ -1,0 +1,144 @@
+"""The design with the most net present value over a life plan, proven.
+
+References: today's single-period solve (a one-period life, and an unchanging life
+whose NPV is the one-period profit at the volume scaled by the annuity factor
+(1 - (1 + r)^-n) / r, common practice); and brute force: every design of the exhaustive
+reference priced in every period by the evaluator. Invented data only.
+"""
+
+from __future__ import annotations
+
+import copy
+import json
+import math
+import tomllib
+from pathlib import Path
+
+import pytest
+from typer.testing import CliRunner
+
+from optimizer.cli import app
+from optimizer.evaluator import Evaluator
+from optimizer.life import life_plan
+from optimizer.problem import parse_problem
+from optimizer.solver import solve
+from optimizer.solver.exhaustive import exhaustive_search
+from optimizer.solver.life import _specs, _value, solve_life
+from tests.random_problems import random_problem
+
+RTOL = 1e-9
+EDGE = Path(__file__).resolve().parent.parent / "problems" / "edge_accelerator.toml"
+runner = CliRunner()
+
+
+def _brute_force(plan) -> float:
+    first = plan.problems[0]
+    out = exhaustive_search(Evaluator(first), top=10**7)
+    best = -math.inf
+    for sel, cost in out.priced.items():
+        if not math.isfinite(cost):
+            continue
+        specs = _specs(first, out.candidates[sel.packaging_index], sel)
+        value = _value(plan, specs, first.packaging[sel.packaging_index].name, "x", "test")
+        if value is not None:
+            best = max(best, value.npv)
+    return best
+
+
+def _with_life(data: dict, **life) -> dict:
+    data = copy.deepcopy(data)
+    data["life"] = life
+    return data
+
+
+def test_one_period_life_is_todays_solve():
+    data = tomllib.loads(EDGE.read_text())
+    volume = data["market"]["volume"]
+    plan = life_plan(_with_life(data, period="year", volumes=[volume], discount_rate=0.0))
+    found = solve_life(plan)
+    today = solve(parse_problem(data), top=1, refine=False)
+    assert found.proven and today.proven_optimal
+    assert found.best.npv == pytest.approx(today.best.profit, rel=RTOL)
+
+
+def test_unchanging_life_is_todays_solve_at_the_annuity_volume():
+    # n equal years at rate r, one-time costs at the start: NPV(d) = A op(d) - one-time,
+    # the profit of the same problem at A times the yearly volume (and salvage demand)
+    data = tomllib.loads(EDGE.read_text())
+    n, r, volume = 5, 0.08, 600_000.0
+    life = _with_life(data, period="year", volumes=[volume] * n, discount_rate=r)
+    for b in life["market"].get("salvage_bin", []):
+        b["demand"] *= n  # the life's demand, a fifth a year
+    found = solve_life(life_plan(life))
+    annuity = (1 - (1 + r) ** -n) / r
+    scaled = copy.deepcopy(data)
+    scaled["market"]["volume"] = volume * annuity
+    for b in scaled["market"].get("salvage_bin", []):
+        b["demand"] *= annuity
+    today = solve(parse_problem(scaled), top=1, refine=False)
+    assert found.proven
+    assert found.best.npv == pytest.approx(today.best.profit, rel=RTOL)
+
+
+def _random_life(seed: int, period: str = "year") -> dict:
+    data = random_problem(seed, budget=3000)
+    process = data["process"][0]
+    value, unit = process["defect_density"].split()
+    volume = data["market"]["volume"]
+    n = 3 if period == "year" else 6
+    return _with_life(
+        data,
+        period=period,
+        volumes=[
+            volume * w for w in ([0.25, 0.5, 0.25] if n == 3 else [0.1, 0.2, 0.2, 0.2, 0.2, 0.1])
+        ],
+        discount_rate=0.1,
+        market={"unit_price": {"form": "erosion", "per_year": 0.1}},
+        process={
+            process["name"]: {
+                "defect_density": {
+                    "form": "learn_by_time",
+                    "mature": f"{float(value) * 0.5} {unit}",
+                    "time_constant": "1 year",
+                },
+                "wafer_cost": {"form": "erosion", "per_year": 0.05},
+            }
+        },
+    )
+
+
+@pytest.mark.parametrize("seed", [1, 4, 5, 8, 9, 12, 21, 33])
+def test_random_lives_equal_brute_force(seed):
+    plan = life_plan(_random_life(seed), f"seed{seed}")
+    found = solve_life(plan)
+    assert found.proven
+    assert found.best.npv == pytest.approx(_brute_force(plan), rel=RTOL, abs=1e-6)
+
+
+@pytest.mark.parametrize("seed", [2, 6])
+def test_random_quarterly_lives_equal_brute_force(seed):
+    plan = life_plan(_random_life(seed, "quarter"), f"seed{seed}")
+    found = solve_life(plan)
+    assert found.proven
+    assert found.best.npv == pytest.approx(_brute_force(plan), rel=RTOL, abs=1e-6)
+
+
+def test_solve_on_a_life_file_writes_its_life(tmp_path):
+    text = EDGE.read_text() + (
+        '\n[life]\nperiod = "year"\nvolumes = [1000000, 1500000, 500000]\ndiscount_rate = 0.1\n'
+    )
+    path = tmp_path / "edge_life.toml"
+    path.write_text(text)
+    out = runner.invoke(app, ["solve", str(path), "--json", "--results", str(tmp_path / "r")])
+    assert out.exit_code == 0, out.output
+    payload = json.loads(out.stdout)
+    data = tomllib.loads(text)
+    direct = solve_life(life_plan(data))
+    assert payload["npv"] == pytest.approx(direct.best.npv, rel=RTOL)
+    assert payload["proven"] is True
+    folder = Path(payload["run_folder"])
+    assert {"life.json", "periods.csv", "cumulative_value.png", "cumulative_value.svg"} <= {
+        p.name for p in folder.iterdir()
+    }
+    rows = (folder / "periods.csv").read_text().splitlines()
+    assert rows[0].startswith("design,period") and len(rows) >= 4
