@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from rich.console import Group
 from rich.table import Table
 from rich.text import Text
@@ -82,6 +84,8 @@ def solution_view(solution, currency: str) -> Group:
     best = solution.best
     if solution.proven:
         status = "proven optimal over the stated choices"
+    elif not math.isfinite(solution.npv_bound):
+        status = "best found; no bound proven within the time limit"
     else:
         status = (
             f"best found; NPV bound {money(solution.npv_bound, currency)}, gap "

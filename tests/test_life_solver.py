@@ -20,7 +20,7 @@ from typer.testing import CliRunner
 from optimizer.cli import app
 from optimizer.evaluator import Evaluator
 from optimizer.life import life_plan
-from optimizer.problem import parse_problem
+from optimizer.problem import ProblemError, parse_problem
 from optimizer.solver import solve
 from optimizer.solver.exhaustive import exhaustive_search
 from optimizer.solver.life import _specs, _value, solve_life
@@ -142,3 +142,17 @@ def test_solve_on_a_life_file_writes_its_life(tmp_path):
     }
     rows = (folder / "periods.csv").read_text().splitlines()
     assert rows[0].startswith("design,period") and len(rows) >= 4
+
+
+def test_a_time_limit_gives_the_best_found_or_one_line():
+    # under a limit too short for the proof the search reports what it has, unproven,
+    # with a bound no lower than its design's value, or says to allow more time
+    data = tomllib.loads(EDGE.read_text())
+    plan = life_plan(_with_life(data, period="quarter", volumes=[250000] * 8, discount_rate=0.1))
+    for limit in (0.0, 0.05, 0.5):
+        try:
+            found = solve_life(plan, time_limit=limit)
+        except ProblemError as exc:
+            assert "allow more time" in exc.message
+            continue
+        assert found.proven or found.npv_bound >= found.best.npv

@@ -37,7 +37,7 @@ from optimizer.invariants import InvariantViolation
 from optimizer.life import LifePlan, one_time_discount, periods
 from optimizer.life_value import LifeValue, life_value
 from optimizer.problem import Problem
-from optimizer.solver.candidates import build_candidates, enumerate_contents
+from optimizer.solver.candidates import OutOfTime, build_candidates, enumerate_contents
 from optimizer.solver.search import PROFIT_RTOL, milp_search, profit_bound
 from optimizer.solver.selection import Selection
 
@@ -151,21 +151,41 @@ def _value(plan: LifePlan, specs, packaging: str, name: str, source: str) -> Lif
     return None if broken else value
 
 
-def _first_period_best(plan: LifePlan, problem: Problem, source: str) -> LifeValue | None:
+def _unproven(plan, best_value, upper, first_value, start, log, source) -> LifeSolution:
+    """The best design found when the time limit ended the proof."""
+    if best_value is None:
+        raise ProblemError(
+            source,
+            "life",
+            "no design priced over the whole life within the time limit; allow more time",
+        )
+    log.append("stopped at the time limit before the proof")
+    return LifeSolution(
+        best=dataclasses.replace(best_value, design="life_optimum"),
+        proven=False,
+        npv_bound=max(upper, best_value.npv),
+        seconds=time.perf_counter() - start,
+        first_period_best=first_value,
+        listed=0,
+        log=log,
+    )
+
+
+def _first_period_best(
+    plan: LifePlan, problem: Problem, source: str, deadline: float | None = None
+) -> LifeValue | None:
     """The design the ordinary solve picks on the first period's numbers, over the life."""
     from optimizer.solver import solve
 
     try:
-        result = solve(problem, top=1, refine=False, source=source).best
+        result = solve(problem, top=1, refine=False, source=source, deadline=deadline).best
     except ProblemError:
         return None
     specs = []
     for die in result.dies:
         process = next(p for p in problem.process if p.name == die.process)
         targets = [d for d, _, _ in process.defect_targets()]
-        level = min(
-            range(len(targets)), key=lambda i: abs(targets[i] - die.defect_density_per_cm2)
-        )
+        level = min(range(len(targets)), key=lambda i: abs(targets[i] - die.defect_density_per_cm2))
         sigma = die.sigma_margin
         specs.append(
             DieSpec(
@@ -194,18 +214,34 @@ def solve_life(
     c = one_time_discount(plan)
     log: list[str] = []
     share = c / n
+    # first, the design picked on the first period's numbers: a design to report even
+    # when the time limit ends the proof (half the time at most)
+    half = None if deadline is None else start + 0.5 * (deadline - start)
+    first_value = _first_period_best(plan, items[0].problem, source, half)
     bounds, evaluators, candidates, found = [], [], [], []
+    timed_out = False
     for period in items:
         problem = bound_problem(period.problem, period.discount, share)
         evaluator = Evaluator(problem)
-        contents = enumerate_contents(evaluator)
-        cands = {
-            g: build_candidates(
-                evaluator, g, contents, adjust=_scaled_nre(share), deadline=deadline
-            )
-            for g in range(len(problem.packaging))
-        }
-        best = milp_search(evaluator, top=1, candidates=cands, deadline=deadline)
+        try:
+            if timed_out:
+                raise OutOfTime
+            contents = enumerate_contents(evaluator)
+            cands = {
+                g: build_candidates(
+                    evaluator, g, contents, adjust=_scaled_nre(share), deadline=deadline
+                )
+                for g in range(len(problem.packaging))
+            }
+            best = milp_search(evaluator, top=1, candidates=cands, deadline=deadline)
+        except OutOfTime:
+            # out of time while pricing this period's dies: nothing is known of it
+            timed_out = True
+            bounds.append(math.inf)
+            evaluators.append(evaluator)
+            candidates.append(None)
+            found.append(None)
+            continue
         bounds.append(profit_bound(best, evaluator) if best.proven else math.inf)
         evaluators.append(evaluator)
         candidates.append(cands)
@@ -214,7 +250,7 @@ def solve_life(
     # every period's own best design is a design for the life
     incumbent, best_value = -math.inf, None
     for k, outcome in enumerate(found):
-        if not outcome.ranked:
+        if outcome is None or not outcome.ranked:
             continue
         sel = outcome.ranked[0].selection
         problem = evaluators[k].problem
@@ -224,27 +260,29 @@ def solve_life(
         if value is not None and value.npv > incumbent:
             incumbent, best_value = value.npv, value
     # the design one would pick on the first period's numbers alone (full one-time costs)
-    first_value = _first_period_best(plan, items[0].problem, source)
     if first_value is not None and first_value.npv > incumbent:
         incumbent, best_value = first_value.npv, first_value
     # the period that weighs most lists every design that could beat the incumbent
     j = max(range(n), key=lambda k: items[k].discount * items[k].volume)
+    if timed_out or (deadline is not None and time.perf_counter() > deadline):
+        return _unproven(plan, best_value, upper, first_value, start, log, source)
     evaluator = evaluators[j]
     problem = evaluator.problem
     contents = enumerate_contents(evaluator)
-    unpruned = {
-        g: build_candidates(
-            evaluator, g, contents, prune=False, adjust=_scaled_nre(share), deadline=deadline
-        )
-        for g in range(len(problem.packaging))
-    }
+    try:
+        unpruned = {
+            g: build_candidates(
+                evaluator, g, contents, prune=False, adjust=_scaled_nre(share), deadline=deadline
+            )
+            for g in range(len(problem.packaging))
+        }
+    except OutOfTime:
+        return _unproven(plan, best_value, upper, first_value, start, log, source)
     revenue = problem.market.unit_price * problem.market.volume
     slack = PROFIT_RTOL * max(abs(upper), 1.0)
     floor = incumbent - (upper - bounds[j]) - slack
     ceiling = revenue - floor if math.isfinite(floor) else math.inf
-    listed = milp_search(
-        evaluator, top=1, candidates=unpruned, ceiling=ceiling, deadline=deadline
-    )
+    listed = milp_search(evaluator, top=1, candidates=unpruned, ceiling=ceiling, deadline=deadline)
     proven = listed.proven and all(math.isfinite(b) for b in bounds) and best_value is not None
     sels = sorted(
         (s for s, total in listed.priced.items() if total <= ceiling),
