@@ -482,18 +482,34 @@ class _Shares:
 
 def _candidate_key(problem: Problem, cset, c: int) -> tuple:
     """The die key (see :func:`die_key`) of candidate ``c``."""
+    return priced_die_key(
+        problem,
+        cset.prices,
+        cset.process,
+        cset.instances,
+        cset.spares,
+        cset.repairs,
+        cset.critical_option,
+        c,
+    )
+
+
+def priced_die_key(problem: Problem, prices, process, instances, spares, repairs, critical, c):
+    """The die key (see :func:`die_key`) of row ``c`` of priced die arrays."""
     names = [b.name for b in problem.block]
-    sigma = float(cset.prices.sigma_margin[c])
+
+    def held(row) -> tuple:
+        return tuple(sorted((names[b], int(row[b])) for b in np.flatnonzero(row)))
+
+    sigma = float(prices.sigma_margin[c])
     return (
-        problem.process[int(cset.process[c])].name,
-        tuple(
-            sorted((names[b], int(cset.instances[c, b])) for b in np.flatnonzero(cset.instances[c]))
-        ),
-        tuple(sorted((names[b], int(cset.spares[c, b])) for b in np.flatnonzero(cset.spares[c]))),
-        tuple(sorted((names[b], int(cset.repairs[c, b])) for b in np.flatnonzero(cset.repairs[c]))),
+        problem.process[int(process[c])].name,
+        held(instances[c]),
+        held(spares[c]),
+        held(repairs[c]),
         sigma if math.isfinite(sigma) else None,
-        int(cset.critical_option[c]),
-        round(float(cset.prices.area_mm2[c]), 9),
+        int(critical[c]),
+        round(float(prices.area_mm2[c]), 9),
     )
 
 
@@ -687,6 +703,7 @@ __all__ = [
     "FamilySolution",
     "LibraryDie",
     "die_key",
+    "priced_die_key",
     "family_profit",
     "scaled_problem",
     "solve_family",

@@ -25,7 +25,7 @@ from optimizer.evaluator import Evaluator
 from optimizer.invariants import InvariantViolation
 from optimizer.problem import Problem
 from optimizer.solver.candidates import build_candidates, enumerate_contents
-from optimizer.solver.family import FamilySolution, die_key, family_profit
+from optimizer.solver.family import FamilySolution, die_key, family_profit, priced_die_key
 from optimizer.solver.search import PROFIT_RTOL, milp_search
 from optimizer.solver.selection import selection_specs
 
@@ -110,23 +110,12 @@ def _product_rows(solution, problems, i, source, deadline) -> list[FamilyRow] | 
         return None
     evaluator = Evaluator(problem)
     member_evaluator = Evaluator(member)
-    names = evaluator.blocks.names
-    process_names = [p.name for p in problem.process]
 
     def adjust(prices, process, instances, spares, repairs, critical):
         nre = prices.nre.copy()
         for c in range(nre.size):
-            sigma = float(prices.sigma_margin[c])
-            key = (
-                process_names[int(process[c])],
-                tuple((names[b], int(instances[c, b])) for b in np.flatnonzero(instances[c])),
-                tuple((names[b], int(spares[c, b])) for b in np.flatnonzero(spares[c])),
-                tuple((names[b], int(repairs[c, b])) for b in np.flatnonzero(repairs[c])),
-                sigma if math.isfinite(sigma) else None,
-                int(critical[c]),
-                round(float(prices.area_mm2[c]), 9),
-            )
-            if _sorted_key(key) in paid:
+            key = priced_die_key(problem, prices, process, instances, spares, repairs, critical, c)
+            if key in paid:
                 nre[c] = 0.0
         return dataclasses.replace(prices, nre=nre)
 
@@ -209,19 +198,6 @@ def _conditional(solution, problems, i, design, paid) -> float:
             (c for d, c, _ in p.defect_targets() if abs(d - density) <= 1e-12 * density), 0.0
         )
     return design.profit + nre + one_time
-
-
-def _sorted_key(key: tuple) -> tuple:
-    process, blocks, spares, repairs, sigma, critical, area = key
-    return (
-        process,
-        tuple(sorted(blocks)),
-        tuple(sorted(spares)),
-        tuple(sorted(repairs)),
-        sigma,
-        critical,
-        area,
-    )
 
 
 __all__ = ["FamilyRow", "conditional_problem", "family_tables"]
