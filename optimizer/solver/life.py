@@ -97,38 +97,36 @@ def _scaled_nre(factor: float):
     return adjust
 
 
-def _specs(problem: Problem, cset, sel: Selection) -> list[DieSpec]:
-    """A selection of one period's candidates as die specs that hold each target by its
-    level, so that the same specs read ``problem``'s own densities in any period."""
+def _specs(problem: Problem, cset, sel: Selection) -> list[tuple[DieSpec, int]]:
+    """A selection of one period's candidates as (die spec, target level) pairs: the
+    level, not the density, is the design's choice (:func:`_in_period` reads each
+    period's density of it)."""
     names = [b.name for b in problem.block]
     out = []
     for j, (c, k) in enumerate(sel.dies):
         inst = cset.instances[c]
         sigma = float(cset.prices.sigma_margin[c])
-        out.append(
-            DieSpec(
-                process=problem.process[int(cset.process[c])].name,
-                blocks={names[b]: int(inst[b]) for b in range(len(names)) if inst[b]},
-                spares={names[b]: int(v) for b, v in enumerate(cset.spares[c]) if v},
-                repair={names[b]: int(v) for b, v in enumerate(cset.repairs[c]) if v},
-                copies=int(k),
-                name=f"die{j + 1}",
-                defect_density_per_cm2=float(int(cset.level[c])),  # a level, read per period
-                sigma_margin=sigma if math.isfinite(sigma) else None,
-                critical_area_option=int(cset.critical_option[c]),
-            )
+        spec = DieSpec(
+            process=problem.process[int(cset.process[c])].name,
+            blocks={names[b]: int(inst[b]) for b in range(len(names)) if inst[b]},
+            spares={names[b]: int(v) for b, v in enumerate(cset.spares[c]) if v},
+            repair={names[b]: int(v) for b, v in enumerate(cset.repairs[c]) if v},
+            copies=int(k),
+            name=f"die{j + 1}",
+            sigma_margin=sigma if math.isfinite(sigma) else None,
+            critical_area_option=int(cset.critical_option[c]),
         )
+        out.append((spec, int(cset.level[c])))
     return out
 
 
-def _in_period(problem: Problem, specs: list[DieSpec]) -> list[DieSpec]:
-    """Level-held specs with ``problem``'s target density of each level."""
+def _in_period(problem: Problem, dies: list[tuple[DieSpec, int]]) -> list[DieSpec]:
+    """Die specs with ``problem``'s target density of each die's level."""
     out = []
-    for s in specs:
-        process = next(p for p in problem.process if p.name == s.process)
-        level = int(s.defect_density_per_cm2)
+    for spec, level in dies:
+        process = next(p for p in problem.process if p.name == spec.process)
         density = None if level == 0 else process.defect_targets()[level][0]
-        out.append(dataclasses.replace(s, defect_density_per_cm2=density))
+        out.append(dataclasses.replace(spec, defect_density_per_cm2=density))
     return out
 
 
@@ -187,19 +185,17 @@ def _first_period_best(
         targets = [d for d, _, _ in process.defect_targets()]
         level = min(range(len(targets)), key=lambda i: abs(targets[i] - die.defect_density_per_cm2))
         sigma = die.sigma_margin
-        specs.append(
-            DieSpec(
-                process=die.process,
-                blocks=dict(die.blocks),
-                spares={k: v for k, v in die.spares.items() if v},
-                repair={k: v for k, v in die.repair.items() if v},
-                copies=die.copies,
-                name=die.name,
-                defect_density_per_cm2=float(level),
-                sigma_margin=sigma if sigma is not None and math.isfinite(sigma) else None,
-                critical_area_option=die.critical_area_option,
-            )
+        spec = DieSpec(
+            process=die.process,
+            blocks=dict(die.blocks),
+            spares={k: v for k, v in die.spares.items() if v},
+            repair={k: v for k, v in die.repair.items() if v},
+            copies=die.copies,
+            name=die.name,
+            sigma_margin=sigma if sigma is not None and math.isfinite(sigma) else None,
+            critical_area_option=die.critical_area_option,
         )
+        specs.append((spec, level))
     return _value(plan, specs, result.packaging, f"best_for_{plan.labels[0]}", source)
 
 
