@@ -451,29 +451,16 @@ def sweep(
         if result.crossovers.empty:
             _say(console, "no crossover: one design kind wins over the whole range")
             return
-        view = literal_table("Crossovers (winning kind changes)")
-        for col in ("axis", "at", "from", "to", "crossing", "profit there", "how"):
-            view.add_column(col)
-        for row in result.crossovers.itertuples():
-            where = (
-                f"{row.crossing:.6g}"
-                if math.isfinite(row.crossing)
-                else (f"{row.grid_low:.6g} .. {row.grid_high:.6g}")
+        console.print(
+            _crossover_table(
+                "Crossovers (winning kind changes)",
+                "profit there",
+                result.crossovers,
+                "kind_before",
+                "kind_after",
+                currency,
             )
-            view.add_row(
-                *cells(
-                    row.axis,
-                    row.at,
-                    row.kind_before,
-                    row.kind_after,
-                    where,
-                    money(row.profit_at_crossing, currency)
-                    if math.isfinite(row.profit_at_crossing)
-                    else "-",
-                    row.method,
-                )
-            )
-        console.print(view)
+        )
 
     _finish(console, as_json, payload, folder, show)
 
@@ -920,29 +907,16 @@ def _sweep_family(
         if result.crossovers.empty:
             _say(console, "no crossover: one family design kind wins over the whole range")
             return
-        view = literal_table("Crossovers (winning family design kind changes)")
-        for col in ("axis", "at", "from", "to", "crossing", "family profit there", "how"):
-            view.add_column(col)
-        for row in result.crossovers.itertuples():
-            where = (
-                f"{row.crossing:.6g}"
-                if math.isfinite(row.crossing)
-                else (f"{row.grid_low:.6g} .. {row.grid_high:.6g}")
+        console.print(
+            _crossover_table(
+                "Crossovers (winning family design kind changes)",
+                "family profit there",
+                result.crossovers,
+                "design_before",
+                "design_after",
+                currency,
             )
-            view.add_row(
-                *cells(
-                    row.axis,
-                    row.at,
-                    row.design_before,
-                    row.design_after,
-                    where,
-                    money(row.profit_at_crossing, currency)
-                    if math.isfinite(row.profit_at_crossing)
-                    else "-",
-                    row.method,
-                )
-            )
-        console.print(view)
+        )
 
     _finish(console, as_json, payload, folder, show)
 
@@ -1100,3 +1074,30 @@ def _uncertainty_family(
                 )
 
     _finish(console, as_json, payload, folder, show)
+
+
+def _crossover_table(title, profit_label, crossovers, before, after, currency):
+    """Where a sweep's winner changes: one row per crossover (single product or family,
+    whose frames name the two sides by ``before`` and ``after``)."""
+    view = literal_table(title)
+    for col in ("axis", "at", "from", "to", "crossing", profit_label, "how"):
+        view.add_column(col)
+    for row in crossovers.itertuples():
+        where = (
+            f"{row.crossing:.6g}"
+            if math.isfinite(row.crossing)
+            else f"{row.grid_low:.6g} .. {row.grid_high:.6g}"
+        )
+        profit = row.profit_at_crossing
+        view.add_row(
+            *cells(
+                row.axis,
+                row.at,
+                getattr(row, before),
+                getattr(row, after),
+                where,
+                money(profit, currency) if math.isfinite(profit) else "-",
+                row.method,
+            )
+        )
+    return view
