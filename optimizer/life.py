@@ -13,6 +13,7 @@ cost, the base unit price. Example (invented numbers, for problems/server_proces
     discount_rate = 0.09            # per year, 0 to 1; 0 means no discounting
     one_time_period = 1             # NRE and one-time yield spend paid at this period's start
     read_curves_at = "middle"       # where in a period curves are read: start, middle, end
+    targets = "once"                # defect-density targets bought once, or "per_period"
 
     [life.market]
     unit_price = { form = "erosion", per_year = 0.10 }
@@ -64,6 +65,11 @@ Conventions:
   defect_targets) is a ratio off the period's density: its floor, table points and
   targets are scaled by D_k / D_0, so the one-time cost and per-wafer adder of a target
   are the same in every period and one choice holds for the whole life.
+* ``targets = "once"`` (default): a design's target level is chosen once, its one-time
+  cost paid with the NRE. ``targets = "per_period"``: each period buys its own level (a
+  yield programme run period by period): the level's one-time cost is spent in every
+  period that uses it, as part of that period's cash flow (discounted with it), and the
+  one-time payment holds the NRE only. The solver then picks each period's best level.
 * ``market.volume`` of the file is not used by the periods (``volumes`` replaces it).
 
 API:
@@ -141,10 +147,12 @@ LIFE_KEYS = (
     "discount_rate",
     "one_time_period",
     "read_curves_at",
+    "targets",
     "market",
     "process",
     "packaging",
 )
+TARGET_MODES = ("once", "per_period")
 # 50 years of quarters; every period is an ordinary problem, validated at load time
 MAX_PERIODS = 200
 MAX_DISCOUNT_RATE = 1.0  # per year
@@ -335,6 +343,7 @@ class LifePlan:
     one_time_period: int  # 1-based
     read_curves_at: str
     tracks: tuple[Track, ...]
+    targets: str  # "once" or "per_period": how defect-density targets are bought
     base: Problem = field(repr=False, compare=False)
     problems: tuple[Problem, ...] = field(repr=False, compare=False)
 
@@ -534,6 +543,13 @@ class _Reader:
             self.fail(
                 "read_curves_at", f"got {shorten(read_at)}; use one of 'start', 'middle', 'end'"
             )
+        targets = raw.get("targets", "once")
+        if not isinstance(targets, str) or targets not in TARGET_MODES:
+            self.fail(
+                "targets",
+                f"got {shorten(targets)}; use 'once' (one target level for the life) or "
+                "'per_period' (each period buys its own)",
+            )
         fraction = READ_POINTS[read_at]
         self.times = [(k + fraction) * PERIOD_YEARS[period] for k in range(self.n)]
         self.fraction = fraction
@@ -546,6 +562,7 @@ class _Reader:
             one_time_period=one_time,
             read_curves_at=read_at,
             tracks=tuple(tracks),
+            targets=targets,
             base=self.base,
             problems=(),
         )

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import csv
+import io
 import math
 
 from rich.console import Group
@@ -104,6 +106,8 @@ def solution_view(solution, currency: str) -> Group:
         Text(f"Design: {design_line(best.periods[0].result)}"),
         life_view(best, currency),
     ]
+    if solution.rows:
+        parts.append(table_view(solution.rows, currency))
     first = solution.first_period_best
     if first is not None:
         label = best.periods[0].label
@@ -131,43 +135,155 @@ def design_line(result) -> str:
 
 def periods_csv(values: dict) -> str:
     """Per design and period: cash flow and cumulative discounted value."""
-    lines = ["design,period,volume,unit_price,cash_flow,discount,cumulative"]
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(
+        ["design", "period", "volume", "unit_price", "cash_flow", "discount", "cumulative"]
+    )
     for name, value in values.items():
         for p in value.periods:
-            lines.append(
-                f"{name},{p.label},{p.volume!r},{p.unit_price!r},{p.cash_flow!r},"
-                f"{p.discount!r},{p.cumulative!r}"
+            writer.writerow(
+                [
+                    name,
+                    p.label,
+                    repr(p.volume),
+                    repr(p.unit_price),
+                    repr(p.cash_flow),
+                    repr(p.discount),
+                    repr(p.cumulative),
+                ]
             )
-    return "\n".join(lines) + "\n"
+    return out.getvalue()
+
+
+def crossovers(optimum: list[float], other: list[float]) -> list[int]:
+    """Indices k (0-based) where ``other``'s cumulative value passes ``optimum``'s between
+    period k-1 and period k (either way)."""
+    out = []
+    for k in range(1, len(optimum)):
+        before, after = other[k - 1] - optimum[k - 1], other[k] - optimum[k]
+        if before * after < 0 or (before > 0 and after == 0):
+            out.append(k)
+    return out
 
 
 def cumulative_figure(values: dict, currency: str, title: str):
-    """Cumulative discounted value per period of each design, the crossover marked."""
+    """Cumulative discounted value per period of each design (the first is the optimum);
+    where another design's curve crosses the optimum's, the crossing is marked."""
     import matplotlib
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    figure, axes = plt.subplots(figsize=(7.5, 4.2))
+    figure, axes = plt.subplots(figsize=(8.0, 4.6))
     series = {}
-    for name, value in values.items():
+    for index, (name, value) in enumerate(values.items()):
         x = list(range(1, len(value.periods) + 1))
         y = [p.cumulative / 1e6 for p in value.periods]
         series[name] = y
-        axes.plot(x, y, marker="o", label=name)
+        axes.plot(
+            x,
+            y,
+            marker="o" if index == 0 else ".",
+            linewidth=2.2 if index == 0 else 1.2,
+            label=name,
+            zorder=3 if index == 0 else 2,
+        )
     names = list(series)
-    if len(names) == 2:
-        a, b = series[names[0]], series[names[1]]
-        for k in range(1, len(a)):
-            if (a[k - 1] - b[k - 1]) * (a[k] - b[k]) < 0:
-                axes.axvline(k + 0.5, color="grey", linestyle=":", label="crossover")
-                break
+    marked = False
+    for name in names[1:]:
+        for k in crossovers(series[names[0]], series[name]):
+            # the crossing point of the two straight segments between periods k and k+1
+            a0, a1 = series[names[0]][k - 1], series[names[0]][k]
+            b0, b1 = series[name][k - 1], series[name][k]
+            t = (b0 - a0) / ((b0 - a0) - (b1 - a1))
+            axes.plot(
+                [k + t],
+                [a0 + t * (a1 - a0)],
+                marker="X",
+                markersize=10,
+                color="black",
+                linestyle="none",
+                label=None if marked else "crossover",
+                zorder=4,
+            )
+            marked = True
     labels = [p.label for p in next(iter(values.values())).periods]
-    axes.set_xticks(range(1, len(labels) + 1), labels)
+    step = max(1, len(labels) // 12)
+    axes.set_xticks(range(1, len(labels) + 1, step), labels[::step])
     axes.axhline(0.0, color="black", linewidth=0.6)
     axes.set_xlabel("period")
     axes.set_ylabel(f"cumulative discounted value [M {currency}]")
     axes.set_title(title, fontsize=10)
-    axes.legend(fontsize=8)
+    axes.legend(fontsize=7, loc="upper left")
     figure.tight_layout()
     return figure
+
+
+def row_status(row) -> str:
+    if row.value is None:
+        return row.reason
+    if row.proven:
+        return "proven"
+    if not math.isfinite(row.npv_bound):
+        return "open, no bound within the time"
+    return f"open, gap {percent(row.gap, 2)}"
+
+
+def table_view(rows, currency: str) -> Table:
+    """The decision table over the life: each architecture's design with the most NPV."""
+    optimum = next((r for r in rows if r.optimum), None)
+    table = literal_table(f"Best design of each architecture over the life (money in {currency})")
+    for col in ("architecture", "NPV", "vs optimum", "pays back", "status", "design"):
+        table.add_column(col, justify="right" if col in ("NPV", "vs optimum") else "left")
+    for row in rows:
+        if row.value is None:
+            table.add_row(*cells(row.label, "-", "-", "-", row_status(row), ""))
+            continue
+        behind = "optimum" if row.optimum else money(row.npv - optimum.npv)
+        table.add_row(
+            *cells(
+                row.label,
+                money(row.npv),
+                behind,
+                row.value.payback or "not within the life",
+                row_status(row),
+                design_line(row.value.periods[0].result),
+            )
+        )
+    return table
+
+
+def row_dict(row) -> dict:
+    return {
+        "architecture": row.label,
+        "packaging": row.packaging,
+        "n_dies": row.n_dies,
+        "optimum": row.optimum,
+        "npv": row.npv if row.value is not None else None,
+        "proven": row.proven,
+        "npv_bound": row.npv_bound,
+        "gap": row.gap if row.value is not None else None,
+        "payback": row.value.payback if row.value is not None else None,
+        "design": design_line(row.value.periods[0].result) if row.value is not None else None,
+        "reason": row.reason,
+    }
+
+
+def curves(solution, first_label: str) -> dict:
+    """The designs drawn over the life: the optimum, the first period's pick, and the
+    best design of each other architecture (each design once)."""
+    values = {"life optimum": solution.best}
+    seen = {design_line(solution.best.periods[0].result)}
+    first = solution.first_period_best
+    if first is not None and design_line(first.periods[0].result) not in seen:
+        values[f"picked on {first_label} alone"] = first
+        seen.add(design_line(first.periods[0].result))
+    for row in solution.rows:
+        if row.value is None or row.optimum:
+            continue
+        line = design_line(row.value.periods[0].result)
+        if line not in seen:
+            values[f"best {row.label}"] = row.value
+            seen.add(line)
+    return values

@@ -3,7 +3,9 @@
 Each period's problem (:func:`optimizer.life.periods`) prices the design exactly with the
 evaluator. The period's cash flow is its operating profit: revenue + salvage revenue -
 volume x manufacturing cost, i.e. the evaluator's profit plus the NRE and one-time
-yield spend it charged (those are paid once, at the plan's one-time point). The net
+yield spend it charged (those are paid once, at the plan's one-time point). With
+``targets = "per_period"`` a period's yield spend stays in its cash flow; only the NRE
+is paid once. The net
 present value discounts each cash flow at its period's end and the one-time costs at
 their own point (:func:`optimizer.life.plan_npv`).
 """
@@ -38,7 +40,7 @@ class LifeValue:
 
     design: str
     periods: list[PeriodValue]
-    one_time: float  # NRE + one-time yield spend
+    one_time: float  # NRE + one-time yield spend (NRE only with targets bought per period)
     one_time_discount: float
     npv: float
     payback: str | None  # label of the first period whose cumulative value is >= 0
@@ -62,10 +64,12 @@ def life_value(plan: LifePlan, price, name: str) -> LifeValue:
     one period."""
     rows: list[tuple] = []
     one_time = None
+    # with targets bought per period, a period's target spend is in its own cash flow
+    per_period = plan.targets == "per_period"
     for period in periods(plan.base, plan):
         problem = period.problem
         result = price(problem)
-        spent = result.nre + result.improvement_spend
+        spent = result.nre + (0.0 if per_period else result.improvement_spend)
         if one_time is None:
             one_time = spent
         elif not math.isclose(spent, one_time, rel_tol=1e-12, abs_tol=1e-6):

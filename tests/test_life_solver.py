@@ -23,7 +23,7 @@ from optimizer.life import life_plan
 from optimizer.problem import ProblemError, parse_problem
 from optimizer.solver import solve
 from optimizer.solver.exhaustive import exhaustive_search
-from optimizer.solver.life import _specs, _value, solve_life
+from optimizer.solver.life import LifePricer, _specs, solve_life
 from tests.random_problems import random_problem
 
 RTOL = 1e-9
@@ -31,18 +31,27 @@ EDGE = Path(__file__).resolve().parent.parent / "problems" / "edge_accelerator.t
 runner = CliRunner()
 
 
-def _brute_force(plan) -> float:
+def _brute_force_by_architecture(plan) -> dict[tuple[str, int], float]:
+    """Every design of the exhaustive reference priced period by period: the most NPV of
+    each (packaging, die count)."""
     first = plan.problems[0]
     out = exhaustive_search(Evaluator(first), top=10**7)
-    best = -math.inf
+    pricer = LifePricer(plan, "test")
+    best: dict[tuple[str, int], float] = {}
     for sel, cost in out.priced.items():
         if not math.isfinite(cost):
             continue
         specs = _specs(first, out.candidates[sel.packaging_index], sel)
-        value = _value(plan, specs, first.packaging[sel.packaging_index].name, "x", "test")
+        packaging = first.packaging[sel.packaging_index].name
+        value = pricer.value(specs, packaging, "x")
         if value is not None:
-            best = max(best, value.npv)
+            key = (packaging, sel.n_dies)
+            best[key] = max(best.get(key, -math.inf), value.npv)
     return best
+
+
+def _brute_force(plan) -> float:
+    return max(_brute_force_by_architecture(plan).values(), default=-math.inf)
 
 
 def _with_life(data: dict, **life) -> dict:
@@ -113,6 +122,66 @@ def test_random_lives_equal_brute_force(seed):
     found = solve_life(plan)
     assert found.proven
     assert found.best.npv == pytest.approx(_brute_force(plan), rel=RTOL, abs=1e-6)
+
+
+@pytest.mark.parametrize("seed", [3, 11])
+def test_life_decision_table_equals_brute_force_per_architecture(seed):
+    # every architecture's row: the most NPV among that architecture's designs, or empty
+    # exactly when it has none that keeps the rules in every period
+    plan = life_plan(_random_life(seed), f"seed{seed}")
+    found = solve_life(plan, table=True)
+    reference = _brute_force_by_architecture(plan)
+    assert found.proven and all(row.proven for row in found.rows)
+    assert sum(row.optimum for row in found.rows) == 1
+    for row in found.rows:
+        key = (row.packaging, row.n_dies)
+        if row.value is None:
+            assert key not in reference
+        else:
+            assert row.npv == pytest.approx(reference[key], rel=RTOL, abs=1e-6)
+    assert found.rows[0].optimum and found.rows[0].npv == pytest.approx(found.best.npv)
+
+
+@pytest.mark.parametrize("seed", [1, 5, 9])
+def test_targets_bought_per_period_equal_brute_force(seed):
+    data = _random_life(seed)
+    data["life"]["targets"] = "per_period"
+    plan = life_plan(data, f"seed{seed}")
+    found = solve_life(plan)
+    assert found.proven
+    assert found.best.npv == pytest.approx(_brute_force(plan), rel=RTOL, abs=1e-6)
+
+
+def test_targets_per_period_in_a_one_period_life_at_no_discount_are_todays_solve():
+    data = tomllib.loads(EDGE.read_text())
+    volume = data["market"]["volume"]
+    once = _with_life(data, period="year", volumes=[volume], discount_rate=0.0)
+    each = _with_life(
+        data, period="year", volumes=[volume], discount_rate=0.0, targets="per_period"
+    )
+    today = solve(parse_problem(data), top=1, refine=False).best.profit
+    assert solve_life(life_plan(once)).best.npv == pytest.approx(today, rel=RTOL)
+    assert solve_life(life_plan(each)).best.npv == pytest.approx(today, rel=RTOL)
+
+
+def test_per_period_targets_follow_the_young_process():
+    # on the demo's young process a bought target pays while defects are many; bought
+    # per period it is taken early and dropped once the line has learned, and the life
+    # is worth at least as much as with one level for the life when targets cost
+    # nothing once (their per-wafer adder is paid per wafer either way)
+    path = Path(__file__).resolve().parent.parent / "problems" / "edge_accelerator_life.toml"
+    data = tomllib.loads(path.read_text())
+    for process in data["process"]:
+        curve = process.get("defect_reduction")
+        if curve and "points" in curve:
+            curve["points"] = [[d, 0.0, w] for d, _, w in curve["points"]]
+        elif curve:
+            curve["one_time_per_log"] = 0.0
+    once = solve_life(life_plan(data))
+    data["life"]["targets"] = "per_period"
+    each = solve_life(life_plan(data))
+    assert once.proven and each.proven
+    assert each.best.npv >= once.best.npv * (1 - RTOL)
 
 
 @pytest.mark.parametrize("seed", [2, 6])
