@@ -5,7 +5,9 @@ checks its options and output folder before any work, runs the library
 (``optimizer/explore/``), prints a short summary and writes one run folder atomically:
 the problem file(s), the options as JSON, CSV tables and PNG + SVG figures. Bad input is
 one line on stderr and exit code 2 (see :class:`optimizer.cli.OneLineGroup`); names from
-problem files are printed as Text, never read as console markup.
+problem files are printed as Text, never read as console markup. A file with a [life]
+plan is explored with its net present value as the objective: the same tables and
+figures, the objective's columns named ``npv`` (see :func:`_named`).
 """
 
 from __future__ import annotations
@@ -117,6 +119,45 @@ def _records(frame: pd.DataFrame) -> list[dict]:
     return clean(frame.to_dict(orient="records"))
 
 
+def _named(frame: pd.DataFrame, objective: str) -> pd.DataFrame:
+    """The frame with its objective columns named for the objective: the library keeps
+    ``profit`` in every frame; a life's are ``npv`` (``profit_low`` -> ``npv_low``)."""
+    if objective == "profit":
+        return frame
+    return frame.rename(columns=lambda c: c.replace("profit", objective))
+
+
+def _heading(objective, first: bool = False) -> str:
+    """The objective in a table heading: "profit" or "NPV" ("Profit" ``first`` in it)."""
+    text = "NPV" if objective.name == "npv" else objective.words
+    return text[:1].upper() + text[1:] if first else text
+
+
+def _is_life_file(path: Path) -> bool:
+    """Whether a problem file (not a family) has a [life] plan; a file that cannot be
+    read is left to the single-product path, which reports it as before."""
+    from optimizer.family import is_family
+    from optimizer.life import has_life
+    from optimizer.problem import read_problem_data
+
+    try:
+        data, _ = read_problem_data(path)
+    except (ProblemError, OSError):
+        return False
+    return has_life(data) and not is_family(data)
+
+
+def _grammar(problem_path: Path) -> Callable:
+    """The path resolver of the file: with a [life] plan, life paths too."""
+    if _is_life_file(problem_path):
+        from optimizer.explore.life_paths import resolve_life
+
+        return resolve_life
+    from optimizer.explore.paths import resolve
+
+    return resolve
+
+
 def _csv_writer(frame: pd.DataFrame) -> Writer:
     return text_writer(frame.to_csv(index=False))
 
@@ -155,28 +196,35 @@ def _finish(
 
 
 def _design_rows(designs: dict) -> dict:
+    """Held designs as JSON; a design held over a life names its target levels (0: the
+    process's base density) instead of densities, which move with the periods."""
     return {
         key: {
             "kind": d.kind,
             "summary": d.summary,
             "packaging": d.packaging,
-            "dies": [
-                {
-                    "name": s.name,
-                    "process": s.process,
-                    "copies": s.copies,
-                    "blocks": s.blocks,
-                    "spares": s.spares,
-                    "repair": s.repair,
-                    "defect_density_per_cm2": s.defect_density_per_cm2,
-                    "sigma_margin": s.sigma_margin,
-                    "critical_area_option": s.critical_area_option,
-                }
-                for s in d.specs
-            ],
+            "dies": [_die_row(s, getattr(d, "levels", None), j) for j, s in enumerate(d.specs)],
         }
         for key, d in designs.items()
     }
+
+
+def _die_row(spec, levels: tuple[int, ...] | None, j: int) -> dict:
+    row = {
+        "name": spec.name,
+        "process": spec.process,
+        "copies": spec.copies,
+        "blocks": spec.blocks,
+        "spares": spec.spares,
+        "repair": spec.repair,
+        "defect_density_per_cm2": spec.defect_density_per_cm2,
+        "sigma_margin": spec.sigma_margin,
+        "critical_area_option": spec.critical_area_option,
+    }
+    if levels is not None:
+        del row["defect_density_per_cm2"]
+        row["target_level"] = levels[j]
+    return row
 
 
 # ---------------------------------------------------------------- compare
@@ -201,6 +249,7 @@ def compare(
 ) -> None:
     """Best design per process option set (one file) or per problem file, side by side."""
     from optimizer.explore import compare as comparing
+    from optimizer.explore.objective import objective_of
     from optimizer.explore.paths import load_study
     from optimizer.explore.plots import comparison_figure
 
@@ -224,8 +273,18 @@ def compare(
             )
         _compare_family(problem_paths, processes, time_limit, as_json, results_dir, write)
         return
+    lives = [_is_life_file(p) for p in problem_paths]
+    if any(lives) and not all(lives):
+        plain = next(p for p, life in zip(problem_paths, lives, strict=True) if not life)
+        raise ProblemError(
+            str(plain),
+            "life",
+            "has no [life] plan, unlike the other files: a life's NPV and one period's "
+            "profit do not compare; compare life files with life files",
+        )
     preflight(results_dir if write else None)
     studies = [load_study(p) for p in problem_paths]
+    objective = objective_of(studies[0])
     if len(studies) > 1:
         options = comparing.file_options(studies)
     else:
@@ -239,13 +298,14 @@ def compare(
         stage("solving options", len(options))
         result = comparing.compare(options, time_limit=time_limit, progress=advance)
     currency = studies[0].problem.market.currency
-    table = result.table
+    table = _named(result.table, objective.name)
     payload = {
         "command": "compare",
         "options": {
             "problems": [str(p) for p in problem_paths],
             "processes": processes,
             "time_limit": time_limit,
+            "objective": objective.words,
         },
         "comparison": _records(table),
         "notes": {k: list(v) for k, v in result.notes.items()},
@@ -258,20 +318,24 @@ def compare(
             "options.json": json_writer(payload["options"]),
             **_figure_writers(
                 "cost_by_component",
-                comparison_figure(result, currency),
+                comparison_figure(result, currency, objective.words),
                 " ".join(s.problem.title for s in studies),
             ),
         }
         files.update(_problem_copies(problem_paths))
         folder = write_run_folder(results_dir, "compare", problem_paths[0].stem, files)
 
+    head = _heading(objective)
+    value = objective.name
+
     def show() -> None:
-        view = literal_table(f"Winners side by side ({currency})")
+        over = "life optima" if value == "npv" else "Winners"
+        view = literal_table(f"{over.capitalize()} side by side ({currency})")
         for col in (
             "option",
             "design kind",
             "cost/good unit",
-            "profit",
+            head,
             "vs best",
             "die yields",
             "package yield",
@@ -280,23 +344,27 @@ def compare(
             view.add_column(
                 col, justify="left" if col in ("option", "design kind", "die yields") else "right"
             )
-        for row in table.itertuples():
-            if not math.isfinite(row.profit):
-                view.add_row(*cells(row.option, row.design_kind, *["-"] * 6))
+        for row in table.to_dict(orient="records"):
+            if not math.isfinite(row[value]):
+                view.add_row(*cells(row["option"], row["design_kind"], *["-"] * 6))
                 continue
             view.add_row(
                 *cells(
-                    row.option,
-                    row.design_kind,
-                    f"{row.cost_per_good_unit:,.2f}",
-                    money(row.profit),
-                    money(row.profit_vs_best),
-                    row.die_yields,
-                    f"{100 * row.package_yield:.2f}%",
-                    money(row.nre),
+                    row["option"],
+                    row["design_kind"],
+                    f"{row['cost_per_good_unit']:,.2f}",
+                    money(row[value]),
+                    money(row[f"{value}_vs_best"]),
+                    row["die_yields"],
+                    f"{100 * row['package_yield']:.2f}%",
+                    money(row["nre"]),
                 )
             )
         console.print(view)
+        if value == "npv":
+            _say(
+                console, "costs per good unit over the life's units; die yields of the first period"
+            )
         for row in table.itertuples():
             if isinstance(row.differences_explained, str):
                 console.print(
@@ -355,6 +423,7 @@ def sweep(
     write: Write = True,
 ) -> None:
     """Solve over a grid of one or two inputs; report where the winning design changes."""
+    from optimizer.explore.objective import objective_of
     from optimizer.explore.paths import load_study
     from optimizer.explore.plots import sweep_figure
     from optimizer.explore.sweep import make_axis, run_sweep
@@ -366,12 +435,20 @@ def sweep(
             workers, scheduler, time_limit, as_json, results_dir, write,
         )  # fmt: skip
         return
-    axes = [make_axis(vary[0], vary[1], vary[2], steps, log, "--vary", "--steps")]
+    resolver = _grammar(problem_path)
+    axes = [
+        make_axis(vary[0], vary[1], vary[2], steps, log, "--vary", "--steps", resolver=resolver)
+    ]
     if vary2 is not None:
-        axes.append(make_axis(vary2[0], vary2[1], vary2[2], steps2, log2, "--vary2", "--steps2"))
+        axes.append(
+            make_axis(
+                vary2[0], vary2[1], vary2[2], steps2, log2, "--vary2", "--steps2", resolver=resolver
+            )
+        )
     runner = _runner(workers, scheduler)
     preflight(results_dir if write else None)
     study = load_study(problem_path)
+    objective = objective_of(study)
     with runner.session(), _progress(console, not as_json) as (stage, advance):
         runner.start()
         result = run_sweep(
@@ -406,23 +483,28 @@ def sweep(
         "scheduler": scheduler,
         "time_limit": time_limit,
         "shared_candidates": result.shared_candidates,
+        "objective": objective.words,
     }
+    points = _named(result.points, objective.name)
+    crossovers = _named(result.crossovers, objective.name)
     payload = {
         "command": "sweep",
         "options": options,
-        "points": _records(result.points),
-        "crossovers": _records(result.crossovers),
+        "points": _records(points),
+        "crossovers": _records(crossovers),
         "designs": _design_rows(result.designs),
     }
     folder = None
     if write:
-        stem = "profit" if len(result.axes) == 1 else "winner_map"
+        stem = objective.name if len(result.axes) == 1 else "winner_map"
         files: dict[str, Writer] = {
-            "points.csv": _csv_writer(result.points),
-            "crossovers.csv": _csv_writer(result.crossovers),
+            "points.csv": _csv_writer(points),
+            "crossovers.csv": _csv_writer(crossovers),
             "designs.json": json_writer(payload["designs"]),
             "options.json": json_writer(options),
-            **_figure_writers(stem, sweep_figure(result, currency), study.problem.title),
+            **_figure_writers(
+                stem, sweep_figure(result, currency, objective.words), study.problem.title
+            ),
             "problem.toml": copy_writer(problem_path),
         }
         if result.curves is not None:
@@ -437,6 +519,8 @@ def sweep(
             else f"{result.solves} solves"
             + (", candidate dies shared" if result.shared_candidates else "")
         )
+        if not objective.single_period:
+            how = f"{result.solves} life solves; objective: {objective.words}"
         _say(
             console,
             f"{len(result.points)} scenarios over {axis_names} on {runner.description} ({how})",
@@ -454,7 +538,7 @@ def sweep(
         console.print(
             _crossover_table(
                 "Crossovers (winning kind changes)",
-                "profit there",
+                f"{_heading(objective)} there",
                 result.crossovers,
                 "kind_before",
                 "kind_after",
@@ -484,6 +568,7 @@ def sensitivity(
     write: Write = True,
 ) -> None:
     """Profit change of the winning design with each uncertain input at its low and high end."""
+    from optimizer.explore.objective import objective_of
     from optimizer.explore.paths import load_study
     from optimizer.explore.plots import tornado_figure
     from optimizer.explore.sensitivity import make_range, ranges_from_study, run_sensitivity
@@ -492,40 +577,62 @@ def sensitivity(
     if _is_family_file(problem_path):
         _sensitivity_family(problem_path, ranges, time_limit, as_json, results_dir, write)
         return
-    extra = [_parse_range(text, make_range) for text in ranges or []]
+    resolver = _grammar(problem_path)
+    extra = [
+        _parse_range(text, lambda p, lo, hi: make_range(p, lo, hi, resolver=resolver))
+        for text in ranges or []
+    ]
     preflight(results_dir if write else None)
     study = load_study(problem_path)
+    objective = objective_of(study)
     all_ranges = ranges_from_study(study) + extra
     with _progress(console, not as_json) as (stage, advance):
         stage("re-pricing the winner", max(1, len(all_ranges)))
         result = run_sensitivity(study, all_ranges, time_limit=time_limit, progress=advance)
     currency = study.problem.market.currency
-    options = {"problem": str(problem_path), "ranges": ranges or [], "time_limit": time_limit}
+    options = {
+        "problem": str(problem_path),
+        "ranges": ranges or [],
+        "time_limit": time_limit,
+        "objective": objective.words,
+    }
+    held = result.held
+    table = _named(result.table, objective.name)
     payload = {
         "command": "sensitivity",
         "options": options,
         "winner": {
             "kind": result.design.kind,
             "design": result.design.summary,
-            "profit": result.base_profit,
+            objective.name: result.base_profit,
+            "proven_optimal": held.proven,
+            "gap": held.gap,
         },
-        "sensitivity": _records(result.table),
+        "sensitivity": _records(table),
     }
     folder = None
     if write:
         files: dict[str, Writer] = {
-            "sensitivity.csv": _csv_writer(result.table),
-            "winner.json": json_writer(result.winner.to_dict()),
+            "sensitivity.csv": _csv_writer(table),
+            "winner.json": json_writer(held.record),
             "options.json": json_writer(options),
-            **_figure_writers("tornado", tornado_figure(result, currency), study.problem.title),
+            **_figure_writers(
+                "tornado", tornado_figure(result, currency, objective.words), study.problem.title
+            ),
             "problem.toml": copy_writer(problem_path),
         }
         folder = write_run_folder(results_dir, "sensitivity", problem_path.stem, files)
 
     def show() -> None:
-        _say(console, f"winner (held fixed): {result.design.kind}: {result.design.summary}")
-        _say(console, f"profit at the file's values: {money(result.base_profit, currency)}")
-        view = literal_table("Profit change, largest swing first")
+        who = "life optimum" if objective.name == "npv" else "winner"
+        _say(console, f"{who} (held fixed): {result.design.kind}: {result.design.summary}")
+        proof = "" if held.proven else f" (not proven; gap {100 * held.gap:.2f}%)"
+        _say(
+            console,
+            f"{objective.words} at the file's values: {money(result.base_profit, currency)}"
+            + proof,
+        )
+        view = literal_table(f"{_heading(objective, True)} change, largest swing first")
         for col in ("input", "range", "at low", "at high", "swing", "note"):
             view.add_column(col, justify="left" if col in ("input", "note") else "right")
         for row in result.table.itertuples():
@@ -586,6 +693,7 @@ def uncertainty(
     write: Write = True,
 ) -> None:
     """Monte Carlo over the file's uncertain inputs: profit P10, P50, P90 of the top designs."""
+    from optimizer.explore.objective import objective_of
     from optimizer.explore.paths import load_study
     from optimizer.explore.plots import uncertainty_figure
     from optimizer.explore.uncertainty import run_uncertainty
@@ -605,10 +713,19 @@ def uncertainty(
             results_dir, write,
         )  # fmt: skip
         return
+    if top is not None and _is_life_file(problem_path):
+        raise ProblemError(
+            "--top",
+            str(top),
+            f"does not apply to the life plan in {problem_path} (a life solve gives one "
+            "optimum; it is compared with the design picked on the first period's numbers); "
+            "drop --top",
+        )
     top = 3 if top is None else top
     runner = _runner(workers, scheduler)
     preflight(results_dir if write else None)
     study = load_study(problem_path)
+    objective = objective_of(study)
     with runner.session(), _progress(console, not as_json) as (stage, advance):
         runner.start()
         result = run_uncertainty(
@@ -630,33 +747,44 @@ def uncertainty(
         "workers": runner.workers,
         "scheduler": scheduler,
         "time_limit": time_limit,
-        "inputs": [entry.model_dump() for entry in study.problem.uncertain],
+        "inputs": [entry.model_dump() for entry in study.uncertain],
+        "objective": objective.words,
     }
+    summary = _named(result.summary, objective.name)
+    if objective.name == "npv":
+        summary.insert(1, "label", list(result.labels))
     payload = {
         "command": "uncertainty",
         "options": options,
-        "summary": _records(result.summary),
+        "summary": _records(summary),
     }
     folder = None
     if write:
         files: dict[str, Writer] = {
-            "summary.csv": _csv_writer(result.summary),
-            "samples.csv": _csv_writer(result.samples_frame()),
+            "summary.csv": _csv_writer(summary),
+            "samples.csv": _csv_writer(_named(result.samples_frame(), objective.name)),
             "designs.json": json_writer(
                 _design_rows({f"rank{k + 1}": d for k, d in enumerate(result.designs)})
             ),
             "options.json": json_writer(options),
             **_figure_writers(
-                "profit_distribution", uncertainty_figure(result, currency), study.problem.title
+                f"{objective.name}_distribution",
+                uncertainty_figure(result, currency, objective.words),
+                study.problem.title,
             ),
             "problem.toml": copy_writer(problem_path),
         }
         folder = write_run_folder(results_dir, "uncertainty", problem_path.stem, files)
 
+    labels = list(result.labels) if objective.name == "npv" else []
+
     def show() -> None:
         names = ", ".join(p.text for p in result.inputs)
         _say(console, f"{samples:,} samples (seed {seed}) of {names} on {runner.description}")
-        view = literal_table(f"Profit ({currency}) of the top designs")
+        view = literal_table(
+            f"{objective.words.capitalize()} ({currency}) of the "
+            + ("life optimum and the first period's pick" if labels else "top designs")
+        )
         for col in (
             "rank",
             "design kind",
@@ -664,14 +792,14 @@ def uncertainty(
             "P10",
             "P50",
             "P90",
-            "P(most profitable)",
+            "P(best)" if labels else "P(most profitable)",
         ):
             view.add_column(col, justify="left" if col == "design kind" else "right")
         for row in result.summary.itertuples():
             view.add_row(
                 *cells(
                     str(row.rank),
-                    row.design_kind,
+                    f"{labels[row.rank - 1]}: {row.design_kind}" if labels else row.design_kind,
                     money(row.profit_at_file_values),
                     money(row.p10),
                     money(row.p50),

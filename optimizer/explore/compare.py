@@ -9,6 +9,10 @@ Each option is solved to proven optimality; the winners are tabulated side by si
 their cost per good unit split into components, and each component's difference to the
 most profitable option: positive means this option pays more for that component per
 good unit, which is what separates it from the best.
+
+Files with a [life] plan are compared by the NPV of their life optima (see
+:mod:`optimizer.explore.objective`); their cost columns are averages over the life's
+units, and a process option set also drops the plan's curves of what it drops.
 """
 
 from __future__ import annotations
@@ -22,6 +26,13 @@ import pandas as pd
 from optimizer.designs import DesignResult
 from optimizer.evaluator import COST_COMPONENTS
 from optimizer.explore.fixed import design_kind, design_summary
+from optimizer.explore.life_paths import (
+    LifePath,
+    LifeStudy,
+    life_study_from_data,
+    parse_life_file_path,
+)
+from optimizer.explore.objective import Winner, objective_of
 from optimizer.explore.paths import Study, parse_path, study_from_data
 from optimizer.problem import ProblemError
 
@@ -76,6 +87,9 @@ def restrict_processes(study: Study, keep: Sequence[str], option: str = "--proce
     data = copy.deepcopy(study.data)
     notes: list[str] = []
     data["process"] = [p for p in data["process"] if p.get("name") in keep]
+    if isinstance(study, LifeStudy):
+        # the life file's [[uncertain]] entries live beside the document
+        data["uncertain"] = [e.model_dump(exclude_none=True) for e in study.uncertain]
     kept_packaging = []
     for pack in data.get("packaging", []):
         via = pack.get("interposer_process")
@@ -110,10 +124,13 @@ def restrict_processes(study: Study, keep: Sequence[str], option: str = "--proce
         )
     if "design" in data:
         data["design"] = designs
+    life = isinstance(study, LifeStudy)
+    if life:
+        notes += _restrict_life(data, keep, packagings)
     uncertain = []
     for entry in data.get("uncertain", []):
-        path = parse_path(entry["path"])
-        head = path.steps[0]
+        path = parse_life_file_path(entry["path"]) if life else parse_path(entry["path"])
+        head = path.steps[1] if isinstance(path, LifePath) else path.steps[0]
         if head.key in ("process", "packaging") and (
             head.item not in (keep if head.key == "process" else packagings)
         ):
@@ -123,7 +140,22 @@ def restrict_processes(study: Study, keep: Sequence[str], option: str = "--proce
     if "uncertain" in data:
         data["uncertain"] = uncertain
     label = "+".join(keep)
-    return Option(label, study_from_data(data, f"{study.source} [{label}]"), tuple(notes))
+    source = f"{study.source} [{label}]"
+    remade = life_study_from_data(data, source) if life else study_from_data(data, source)
+    return Option(label, remade, tuple(notes))
+
+
+def _restrict_life(data: dict, processes: Sequence[str], packagings: set) -> list[str]:
+    """Drop the [life] curves of dropped processes and packagings (in place); notes."""
+    notes = []
+    for section, kept in (("process", processes), ("packaging", packagings)):
+        curves = data["life"].get(section)
+        if not isinstance(curves, dict):
+            continue
+        for name in [n for n in curves if n not in kept]:
+            del curves[name]
+            notes.append(f"life curves of {section} '{name}' dropped with it")
+    return notes
 
 
 def process_options(study: Study, sets: Sequence[Sequence[str]] | None = None) -> list[Option]:
@@ -160,29 +192,26 @@ def compare(
     time_limit: float | None = None,
     progress: Callable[[int, int], None] | None = None,
 ) -> Comparison:
-    """Solve every option and tabulate the winners (best profit first)."""
-    from optimizer.solver import solve
-
+    """Solve every option and tabulate the winners (best objective first: profit, or
+    NPV when the options are life files, whose ``profit`` columns then hold NPV)."""
     if not options:
         raise ValueError("nothing to compare")
+    objectives = {objective_of(o.study).name for o in options}
+    if len(objectives) > 1:
+        raise ValueError("compare life files with life files, and plain files with plain ones")
     results: dict[str, DesignResult] = {}
-    proven: dict[str, bool] = {}
+    winners: dict[str, Winner] = {}
     failed: dict[str, ProblemError] = {}
     for done, option in enumerate(options, start=1):
+        objective = objective_of(option.study)
         try:
-            solution = solve(
-                option.study.problem,
-                top=1,
-                method=method,
-                time_limit=time_limit,
-                source=option.study.source,
-            )
+            winner = objective.winners(option.study, 1, method, time_limit)[0]
         except ProblemError as error:
             # an option with no feasible design is a finding, not a failure of the run
             failed[option.label] = error
         else:
-            results[option.label] = solution.best
-            proven[option.label] = solution.proven_optimal
+            results[option.label] = winner.result
+            winners[option.label] = winner
         if progress is not None:
             progress(done, len(options))
     if not results:
@@ -221,8 +250,11 @@ def compare(
             "lowest_die_yield": min(d.die_yield for d in r.dies),
             "package_yield": r.package_yield,
             "nre": r.nre,
-            "proven_optimal": proven[option.label],
+            "proven_optimal": winners[option.label].proven,
         }
+        if not objective_of(option.study).single_period:
+            del row["profit_margin"]  # a life has no one margin (its rows hold NPV)
+        row.update(winners[option.label].extra)
         for component in COST_COMPONENTS:
             row[f"cost_{component}"] = r.breakdown.get(component, 0.0)
         for component in COST_COMPONENTS:

@@ -431,6 +431,11 @@ class Study:
     problem: Problem
     uncertain_paths: tuple[FieldPath, ...]
 
+    @property
+    def uncertain(self) -> list:
+        """The file's [[uncertain]] inputs (as a life study names them too)."""
+        return self.problem.uncertain
+
 
 def study_from_data(data: dict, source: str = "<problem>") -> Study:
     """Validate decoded TOML (and its [[uncertain]] paths) into a :class:`Study`."""
@@ -438,20 +443,20 @@ def study_from_data(data: dict, source: str = "<problem>") -> Study:
     return Study(source, data, problem, tuple(check_uncertain(problem, source)))
 
 
-def load_study(path: str | Path) -> Study:
+def load_study(path: str | Path):
     """Read a problem file for exploration (raises ProblemError with file, field, fix).
 
     The file as written must admit a design; scenarios derived from it need not (for them
-    "no feasible design" is a finding), so only the file gets ``check_feasible``.
+    "no feasible design" is a finding), so only the file gets ``check_feasible``. A file
+    with a [life] plan gives a :class:`optimizer.explore.life_paths.LifeStudy`, explored
+    with its net present value as the objective.
     """
     data, source = read_problem_data(path)
     if isinstance(data, dict) and "life" in data:
-        raise ProblemError(
-            source,
-            "life",
-            "the exploration commands do not yet take a [life] plan; `dieplan solve` and "
-            "`dieplan evaluate` do; remove [life] to explore one set of numbers",
-        )
-    study = study_from_data(data, source)
+        from optimizer.explore.life_paths import life_study_from_data
+
+        study = life_study_from_data(data, source)
+    else:
+        study = study_from_data(data, source)
     check_feasible(study.problem, source)
     return study

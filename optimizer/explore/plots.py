@@ -163,8 +163,10 @@ def _footer(fig: Figure) -> None:
 
 
 @literal_text
-def comparison_figure(comparison: Comparison, currency: str = "") -> Figure:
-    """Stacked bars: cost per good unit of each option's winner, by component."""
+def comparison_figure(comparison: Comparison, currency: str = "", words: str = "profit") -> Figure:
+    """Stacked bars: cost per good unit of each option's winner, by component (``words``
+    names the objective: "profit", or "net present value", whose costs are averages
+    over the life's units)."""
     table = comparison.table[np.isfinite(comparison.table["profit"].to_numpy(dtype=float))]
     fig, ax = _figure(max(6.0, 1.4 * len(table) + 3), 5.0)
     x = np.arange(len(table))
@@ -195,20 +197,29 @@ def comparison_figure(comparison: Comparison, currency: str = "") -> Figure:
     ax.margins(y=0.1)  # room above the tallest bar for its total
     # wrapped to the bar pitch (1.4 in) rather than slanted, so neighbours never touch
     ax.set_xticks(x, [_wrap(str(o), 1.2, 9) for o in table["option"]], fontsize=9)
-    ax.set_ylabel(f"cost per good unit{f' ({currency})' if currency else ''}")
-    _title(fig, "Winning design of each option: cost per good unit by component")
+    over_life = words != "profit"
+    ax.set_ylabel(
+        f"cost per good unit{' over the life' if over_life else ''}"
+        f"{f' ({currency})' if currency else ''}"
+    )
+    _title(
+        fig,
+        "Life optimum of each option: cost per good unit over the life's units, by component"
+        if over_life
+        else "Winning design of each option: cost per good unit by component",
+    )
     ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.0, 1.0))
     _footer(fig)
     return fig
 
 
 @literal_text
-def sweep_figure(sweep: SweepResult, currency: str = "") -> Figure:
+def sweep_figure(sweep: SweepResult, currency: str = "", words: str = "profit") -> Figure:
     """1-D: profit of the best design of each winning kind (top) and how far each is
     behind the optimum (bottom), crossovers dashed; 2-D: map of the winning kind, shaded
-    by its profit."""
+    by its profit. ``words`` names the objective ("net present value" for a life)."""
     if len(sweep.axes) == 2:
-        return winner_map_figure(sweep, currency)
+        return winner_map_figure(sweep, currency, words)
     axis = sweep.axes[0]
     fig = Figure(figsize=(9.0, 6.4), layout="constrained")
     ax, behind = fig.subplots(2, 1, sharex=True, height_ratios=(2, 1))
@@ -231,8 +242,8 @@ def sweep_figure(sweep: SweepResult, currency: str = "") -> Figure:
     _crossover_marks(ax, behind, sweep)
     for a in (ax, behind):
         a.yaxis.set_major_formatter(FuncFormatter(_money))
-    ax.set_ylabel(f"profit{unit}")
-    _title(fig, "Profit of the best design of each kind; crossovers dashed")
+    ax.set_ylabel(f"{words}{unit}")
+    _title(fig, f"{words.capitalize()} of the best design of each kind; crossovers dashed")
     ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.0, 1.0))
     _finite_limits(ax, sweep)
     # two lines: the lower panel is too short for the label on one
@@ -316,7 +327,7 @@ def _shade(color, level: np.ndarray) -> np.ndarray:
 
 
 @literal_text
-def winner_map_figure(sweep: SweepResult, currency: str = "") -> Figure:
+def winner_map_figure(sweep: SweepResult, currency: str = "", words: str = "profit") -> Figure:
     """2-D sweep: the winning design kind at every grid point (hue), shaded by the
     winner's profit there (pale: low, full colour: high); the key on the right gives
     the profit of each shade for each winner, black lines part different winners."""
@@ -350,7 +361,7 @@ def winner_map_figure(sweep: SweepResult, currency: str = "") -> Figure:
     finite = profit[np.isfinite(profit)]
     if min(grid.shape) >= 2 and finite.size and finite.min() < 0 < finite.max():
         ax.contour(xs, ys, profit, levels=[0.0], colors="k", linestyles="--", linewidths=1.2)
-        handles.append(Line2D([], [], color="k", ls="--", lw=1.2, label="profit = 0"))
+        handles.append(Line2D([], [], color="k", ls="--", lw=1.2, label=f"{words} = 0"))
     if ax_x.log:
         ax.set_xscale("log")
     if ax_y.log:
@@ -361,8 +372,8 @@ def winner_map_figure(sweep: SweepResult, currency: str = "") -> Figure:
     ax.set_ylim(ey[0], ey[-1])
     ax.set_xlabel(axis_label(ax_x.path))
     ax.set_ylabel(axis_label(ax_y.path))
-    _title(fig, "Winning design kind at each point, shaded by its profit")
-    _profit_key(fig, fig.add_subplot(gs[0, 1]), norm, hues, currency)
+    _title(fig, f"Winning design kind at each point, shaded by its {words}")
+    _profit_key(fig, fig.add_subplot(gs[0, 1]), norm, hues, currency, words)
     _key_row(fig, gs, 1).legend(
         handles=handles,
         fontsize=8,
@@ -390,7 +401,9 @@ def _borders(grid: np.ndarray, ex: np.ndarray, ey: np.ndarray) -> list:
     return segments
 
 
-def _profit_key(fig: Figure, cax: plt.Axes, norm: Normalize, hues: list, currency: str) -> None:
+def _profit_key(
+    fig: Figure, cax: plt.Axes, norm: Normalize, hues: list, currency: str, words: str
+) -> None:
     """A colour bar with one column per winner, each its colour from pale to full over
     the profit scale: reads a cell's profit off its shade."""
     bar = fig.colorbar(ScalarMappable(norm=norm, cmap="Greys"), cax=cax)
@@ -404,7 +417,7 @@ def _profit_key(fig: Figure, cax: plt.Axes, norm: Normalize, hues: list, currenc
         _plain_ticks(bar.ax.yaxis, log=True)
     else:
         bar.ax.yaxis.set_major_formatter(FuncFormatter(_money))
-    bar.set_label(f"profit of the winner{f' ({currency})' if currency else ''}")
+    bar.set_label(f"{words} of the winner{f' ({currency})' if currency else ''}")
 
 
 def _edges(centres: np.ndarray, log: bool) -> np.ndarray:
@@ -423,8 +436,9 @@ def _edges(centres: np.ndarray, log: bool) -> np.ndarray:
 
 
 @literal_text
-def tornado_figure(sensitivity: Sensitivity, currency: str = "") -> Figure:
-    """Change in the winner's profit at the low and high end of each input's range."""
+def tornado_figure(sensitivity: Sensitivity, currency: str = "", words: str = "profit") -> Figure:
+    """Change in the winner's profit (``words``: the objective) at the low and high end
+    of each input's range."""
     table = sensitivity.table.iloc[::-1]  # largest swing on top
     fig, ax = _figure(9.0, max(3.2, 0.55 * len(table) + 2.0))
     y = np.arange(len(table))
@@ -441,18 +455,19 @@ def tornado_figure(sensitivity: Sensitivity, currency: str = "") -> Figure:
     ax.axvline(0, color="k", lw=0.8)
     ax.xaxis.set_major_formatter(FuncFormatter(_money))
     ax.set_xlabel(
-        f"change in profit{f' ({currency})' if currency else ''} from "
+        f"change in {words}{f' ({currency})' if currency else ''} from "
         f"{_money(sensitivity.base_profit)}"
     )
-    _title(fig, "Sensitivity of the winning design's profit (design held fixed)")
+    _title(fig, f"Sensitivity of the winning design's {words} (design held fixed)")
     ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.0, 1.0))
     _footer(fig)
     return fig
 
 
 @literal_text
-def uncertainty_figure(result: Uncertainty, currency: str = "") -> Figure:
-    """Histogram and empirical CDF of profit for each design, P10/P50/P90 marked."""
+def uncertainty_figure(result: Uncertainty, currency: str = "", words: str = "profit") -> Figure:
+    """Histogram and empirical CDF of profit (``words``: the objective) for each design,
+    P10/P50/P90 marked."""
     ranks = len(result.summary)
     # one legend line per rank plus up to two for its design, under the plots
     fig = Figure(figsize=(10.0, 4.8 + 0.42 * ranks), layout="constrained")
@@ -486,7 +501,7 @@ def uncertainty_figure(result: Uncertainty, currency: str = "") -> Figure:
             cdf_ax.plot(row[q], int(q[1:]) / 100, "o", color=color, ms=4)
     for ax in (hist_ax, cdf_ax):
         ax.xaxis.set_major_formatter(FuncFormatter(_money))
-        ax.set_xlabel(f"profit{f' ({currency})' if currency else ''}")
+        ax.set_xlabel(f"{words}{f' ({currency})' if currency else ''}")
     hist_ax.set_ylabel("samples")
     cdf_ax.set_ylabel("fraction of samples at or below")
     cdf_ax.set_yticks([0, 0.1, 0.5, 0.9, 1.0])
@@ -502,7 +517,8 @@ def uncertainty_figure(result: Uncertainty, currency: str = "") -> Figure:
     )
     _title(
         fig,
-        f"Profit over {len(result.samples):,} samples (seed {result.seed}); dots: P10, P50, P90",
+        f"{words.capitalize()} over {len(result.samples):,} samples (seed {result.seed}); "
+        "dots: P10, P50, P90",
     )
     _footer(fig)
     return fig

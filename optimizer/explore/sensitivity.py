@@ -5,7 +5,9 @@ The problem is solved once; the winner is then held fixed (see
 moved to the low and to the high end of its range, every other input as in the file.
 Ranges come from the file's ``[[uncertain]]`` entries (their ``low``/``high``, by default
 mean -/+ 2 std or median x exp(-/+ 2 sigma_log)) and from ranges given on the command
-line. The table is ranked by swing, |profit at high - profit at low|: the tornado.
+line. The table is ranked by swing, |profit at high - profit at low|: the tornado. On a
+file with a [life] plan the objective is the NPV and the winner the life optimum (see
+:mod:`optimizer.explore.objective`); the columns keep their names.
 """
 
 from __future__ import annotations
@@ -18,17 +20,10 @@ import numpy as np
 import pandas as pd
 
 from optimizer.designs import DesignResult
-from optimizer.explore.fixed import FixedDesign, ScenarioPricer
-from optimizer.explore.paths import (
-    FieldPath,
-    PathError,
-    Study,
-    apply_values,
-    parse_value,
-    read_value,
-    resolve,
-)
-from optimizer.problem import ProblemError, parse_problem
+from optimizer.explore.fixed import FixedDesign
+from optimizer.explore.objective import Objective, Winner, objective_of
+from optimizer.explore.paths import FieldPath, PathError, Study, parse_value, resolve
+from optimizer.problem import ProblemError
 
 
 @dataclass(frozen=True)
@@ -44,9 +39,7 @@ class InputRange:
 def ranges_from_study(study: Study) -> list[InputRange]:
     """The sensitivity ranges of the file's ``[[uncertain]]`` entries, in file order."""
     out = []
-    for i, (entry, path) in enumerate(
-        zip(study.problem.uncertain, study.uncertain_paths, strict=True)
-    ):
+    for i, (entry, path) in enumerate(zip(study.uncertain, study.uncertain_paths, strict=True)):
         low, high = entry.range()
         out.append(InputRange(path, low, high, f"uncertain[{i}]"))
     return out
@@ -79,13 +72,17 @@ class Sensitivity:
     """The winner and how its profit moves with each input.
 
     ``table`` columns: input, unit, origin, base_value, low, high, profit_low,
-    profit_high, change_low, change_high, swing, note; largest swing first.
+    profit_high, change_low, change_high, swing, note; largest swing first. ``profit``
+    is the objective (``objective``: profit, or npv for a life plan); ``held`` is the
+    winner as the solve returned it (its design, proof and record).
     """
 
     winner: DesignResult
     design: FixedDesign
     base_profit: float
     table: pd.DataFrame
+    objective: str = "profit"
+    held: Winner | None = None
 
 
 def run_sensitivity(
@@ -96,8 +93,7 @@ def run_sensitivity(
     progress: Callable[[int, int], None] | None = None,
 ) -> Sensitivity:
     """Solve once, then re-price the winner at both ends of every range."""
-    from optimizer.solver import solve
-
+    objective = objective_of(study)
     if not ranges:
         raise ProblemError(
             study.source,
@@ -111,15 +107,12 @@ def run_sensitivity(
             raise _error(study, r, f"is already given by {seen[r.path.text]}; give it once")
         seen[r.path.text] = r.origin
     for r in ranges:
-        _check_ends(study, r)
-    solution = solve(
-        study.problem, top=1, method=method, time_limit=time_limit, source=study.source
-    )
-    winner = solution.best
-    design = FixedDesign.from_result(winner, study.problem)
+        _check_ends(study, r, objective)
+    held = objective.winners(study, 1, method, time_limit)[0]
+    winner, design, base_profit = held.result, held.design, held.value
     rows = []
     for done, r in enumerate(ranges, start=1):
-        pricer = ScenarioPricer(study.data, study.source, [design], [r.path])
+        pricer = objective.pricer(study.data, study.source, [design], [r.path])
         prices = pricer.price(np.array([[r.low], [r.high]]))
         p_low, p_high = (float(v) for v in prices.profit[:, 0])
         note = []
@@ -127,7 +120,7 @@ def run_sensitivity(
             note.append("the design cannot be built at low")
         if not math.isfinite(p_high):
             note.append("the design cannot be built at high")
-        base = read_value(study.problem, r.path)
+        base = objective.read_value(study, r.path)
         rows.append(
             {
                 "input": r.path.text,
@@ -138,8 +131,8 @@ def run_sensitivity(
                 "high": r.high,
                 "profit_low": p_low,
                 "profit_high": p_high,
-                "change_low": p_low - winner.profit,
-                "change_high": p_high - winner.profit,
+                "change_low": p_low - base_profit,
+                "change_high": p_high - base_profit,
                 "swing": abs(p_high - p_low),
                 "note": "; ".join(note),
             }
@@ -148,17 +141,17 @@ def run_sensitivity(
             progress(done, len(ranges))
     table = pd.DataFrame(rows)
     table = table.sort_values("swing", ascending=False, na_position="last", kind="stable")
-    return Sensitivity(winner, design, winner.profit, table.reset_index(drop=True))
+    return Sensitivity(
+        winner, design, base_profit, table.reset_index(drop=True), objective.name, held
+    )
 
 
-def _check_ends(study: Study, r: InputRange) -> None:
+def _check_ends(study: Study, r: InputRange, objective: Objective) -> None:
     for value in (r.low, r.high):
         try:
-            data = apply_values(study.data, [(r.path, value)])
+            objective.validate(study.data, [(r.path, value)], study.source)
         except PathError as exc:
             raise _error(study, r, str(exc)) from None
-        try:
-            parse_problem(data, study.source)
         except ProblemError as err:
             raise _error(
                 study,

@@ -12,6 +12,8 @@ re-priced at every grid point, which gives the profit of the best design of each
 along the axis.
 
 Solves that differ only in [market] numbers share one priced candidate table per worker.
+The loop is shared by every objective (:mod:`optimizer.explore.objective`): a file with a
+[life] plan is swept the same way, each point a life solve and its objective the NPV.
 """
 
 from __future__ import annotations
@@ -31,13 +33,12 @@ from optimizer.explore.paths import (
     FieldPath,
     PathError,
     Study,
-    apply_values,
     parse_path,
     parse_value,
     problem_with,
     resolve,
 )
-from optimizer.problem import ProblemError, parse_problem
+from optimizer.problem import ProblemError
 
 
 @dataclass(frozen=True)
@@ -112,13 +113,14 @@ def make_axis(
 
 def check_axis(study: Study, axis: Axis, option: str = "--vary") -> None:
     """Both ends of the axis must give a valid problem (before any solve starts)."""
+    from optimizer.explore.objective import objective_of
+
+    validate = objective_of(study).validate
     for value in (axis.low, axis.high):
         try:
-            data = apply_values(study.data, [(axis.path, value)])
+            validate(study.data, [(axis.path, value)], study.source)
         except PathError as exc:
             raise ProblemError(option, axis.path.text, str(exc)) from None
-        try:
-            parse_problem(data, study.source)
         except ProblemError as err:
             raise ProblemError(
                 option,
@@ -143,6 +145,7 @@ class ScenarioOutcome:
     n_dies: int
     proven_optimal: bool
     gap: float
+    extra: tuple[tuple[str, object], ...] = ()  # the objective's own columns (name, value)
 
 
 @dataclass(frozen=True)
@@ -226,6 +229,12 @@ def locate_crossing(task: CrossingTask) -> Crossing:
         return Crossing(float("nan"), float("nan"), "grid")
     paths = [parse_path(task.path), *(parse_path(p) for p in task.fixed_paths)]
     pricer = ScenarioPricer(task.data, task.source, [task.before, task.after], paths)
+    return crossing_of(pricer, task)
+
+
+def crossing_of(pricer, task: CrossingTask) -> Crossing:
+    """Root of the objective difference of the task's two designs, priced by ``pricer``
+    (its ``price(values).profit``: single-period profit or life NPV)."""
 
     def at(x: float) -> tuple[float, float]:
         prices = pricer.price(np.array([[x, *task.fixed_values]]))
@@ -279,7 +288,8 @@ class SweepResult:
         The swept inputs (one or two).
     points
         One row per grid point: input values, winning design id, kind and summary,
-        cost per good unit, profit, NRE, package yield, proof status.
+        cost per good unit, profit, NRE, package yield, proof status, and the objective's
+        own columns (a life's ``payback`` and ``npv_bound``; its ``profit`` is the NPV).
     crossovers
         One row per change of winning kind between neighbouring grid points.
     designs
@@ -357,6 +367,9 @@ def _run_sweep(
     study, axes, runner, method, time_limit, refine, curves, progress, stage, every_point
 ):
     """The body of :func:`run_sweep`, inside one runner session."""
+    from optimizer.explore.objective import objective_of
+
+    objective = objective_of(study)
     if not 1 <= len(axes) <= 2:
         raise ValueError("a sweep takes one or two axes")
     if len(axes) == 2 and axes[0].path.text == axes[1].path.text:
@@ -365,7 +378,7 @@ def _run_sweep(
         check_axis(study, axis, "--vary" if i == 0 else "--vary2")
     grids = [axis.values() for axis in axes]
     paths = tuple(axis.path.text for axis in axes)
-    share = all(axis.path.market_scalar for axis in axes)
+    share = objective.single_period and all(axis.path.market_scalar for axis in axes)
     if len(axes) == 1:
         combos = [(float(x),) for x in grids[0]]
     else:
@@ -378,10 +391,10 @@ def _run_sweep(
         ]
         if stage:
             stage(label, len(tasks))
-        return runner.map(solve_scenario, tasks, progress)
+        return runner.map(objective.solve_scenario, tasks, progress)
 
     outcomes, strategy, solves = None, "every point", len(combos)
-    if not every_point and envelope.applies(study, axes):
+    if not every_point and objective.single_period and envelope.applies(study, axes):
         found = envelope.envelope_winners(
             study,
             axes[0],
@@ -417,6 +430,7 @@ def _run_sweep(
             profit=outcome.profit,
             proven_optimal=outcome.proven_optimal,
             gap=outcome.gap,
+            **dict(outcome.extra),
         )
         rows.append(row)
     points = pd.DataFrame(rows)
@@ -425,7 +439,7 @@ def _run_sweep(
     if crossing_tasks and refine:
         if stage:
             stage("locating crossovers", len(crossing_tasks))
-        found = runner.map(locate_crossing, crossing_tasks, progress)
+        found = runner.map(objective.locate_crossing, crossing_tasks, progress)
     else:
         found = [Crossing(float("nan"), float("nan"), "grid") for _ in crossing_tasks]
     for row, crossing in zip(crossing_rows, found, strict=True):
@@ -451,7 +465,10 @@ def _run_sweep(
 
     curve_frame = None
     if curves and len(axes) == 1:
-        curve_frame = _curves(study, axes[0], grids[0], designs, runner, progress, stage)
+        curve_frame = _curves(
+            study, axes[0], grids[0], designs, runner, progress, stage,
+            PriceTask, objective.price_scenarios,
+        )  # fmt: skip
     return SweepResult(axes, points, crossovers, designs, curve_frame, share, strategy, solves)
 
 

@@ -12,6 +12,10 @@ linear interpolation) and the probability of being the most profitable of the se
 A design that cannot be built in a sample (a die grown past the reticle field, an
 interposer past its limit) has no profit there; such samples are counted, left out of
 its percentiles, and it does not win them.
+
+On a file with a [life] plan the objective is the NPV (columns keep their names; see
+:mod:`optimizer.explore.objective`): the designs are the life optimum and, when it is
+another design, the one picked on the first period's numbers alone.
 """
 
 from __future__ import annotations
@@ -24,10 +28,11 @@ import numpy as np
 import pandas as pd
 
 from optimizer.designs import DesignResult
-from optimizer.explore.fixed import FixedDesign, PriceTask, price_scenarios
+from optimizer.explore.fixed import FixedDesign, PriceTask
+from optimizer.explore.objective import Objective, objective_of
 from optimizer.explore.parallel import Progress, Runner, chunks
-from optimizer.explore.paths import FieldPath, PathError, Study, apply_values
-from optimizer.problem import ProblemError, UncertainInput, parse_problem
+from optimizer.explore.paths import FieldPath, PathError, Study
+from optimizer.problem import ProblemError, UncertainInput
 
 PERCENTILES = (10, 50, 90)
 
@@ -82,6 +87,8 @@ class Uncertainty:
     cost_per_good_unit: np.ndarray
     summary: pd.DataFrame
     seed: int
+    objective: str = "profit"
+    labels: tuple[str, ...] = ()
 
     def samples_frame(self) -> pd.DataFrame:
         """One row per sample: input values, then profit of each design by rank."""
@@ -136,9 +143,8 @@ def run_uncertainty(
     stage: Callable[[str, int], None] | None = None,
 ) -> Uncertainty:
     """Solve for the top designs, draw the inputs and price the designs in every sample."""
-    from optimizer.solver import solve
-
-    if not study.problem.uncertain:
+    objective = objective_of(study)
+    if not study.uncertain:
         raise ProblemError(
             study.source,
             "uncertain",
@@ -151,16 +157,14 @@ def run_uncertainty(
     runner = runner or Runner()
     if stage:
         stage("solving at the file's values", 1)
-    solution = solve(
-        study.problem, top=top, method=method, time_limit=time_limit, source=study.source
-    )
+    winners = objective.winners(study, top, method, time_limit)
     if progress:
         progress(1, 1)
-    results = tuple(solution.designs)
-    designs = tuple(FixedDesign.from_result(r, study.problem) for r in results)
+    results = tuple(w.result for w in winners)
+    designs = tuple(w.design for w in winners)
     paths = list(study.uncertain_paths)
-    drawn = sample_inputs(list(study.problem.uncertain), paths, samples, seed)
-    _check_extremes(study, paths, drawn)
+    drawn = sample_inputs(list(study.uncertain), paths, samples, seed)
+    _check_extremes(study, paths, drawn, objective)
     workers = 8 if runner.scheduler else runner.workers
     parts = chunks(samples, max(10, 4 * workers))
     tasks = [
@@ -177,7 +181,7 @@ def run_uncertainty(
         stage("pricing the designs in every sample", len(tasks))
     try:
         with runner.session():
-            priced = runner.map(price_scenarios, tasks, progress)
+            priced = runner.map(objective.price_scenarios, tasks, progress)
     except ProblemError as err:
         raise ProblemError(
             err.source,
@@ -191,11 +195,24 @@ def run_uncertainty(
     summary.insert(0, "rank", np.arange(1, len(designs) + 1))
     summary.insert(1, "design_kind", [d.kind for d in designs])
     summary.insert(2, "design", [d.summary for d in designs])
-    summary.insert(3, "profit_at_file_values", [r.profit for r in results])
-    return Uncertainty(designs, results, tuple(paths), drawn, profit, cost, summary, seed)
+    summary.insert(3, "profit_at_file_values", [w.value for w in winners])
+    return Uncertainty(
+        designs,
+        results,
+        tuple(paths),
+        drawn,
+        profit,
+        cost,
+        summary,
+        seed,
+        objective.name,
+        tuple(w.label for w in winners),
+    )
 
 
-def _check_extremes(study: Study, paths: list[FieldPath], drawn: np.ndarray) -> None:
+def _check_extremes(
+    study: Study, paths: list[FieldPath], drawn: np.ndarray, objective: Objective
+) -> None:
     """Each input's smallest and largest draw must give a valid problem.
 
     Checked before any pricing, so a distribution that strays outside a field's allowed
@@ -205,7 +222,7 @@ def _check_extremes(study: Study, paths: list[FieldPath], drawn: np.ndarray) -> 
     for j, path in enumerate(paths):
         for value in (drawn[:, j].min(), drawn[:, j].max()):
             try:
-                parse_problem(apply_values(study.data, [(path, float(value))]), study.source)
+                objective.validate(study.data, [(path, float(value))], study.source)
             except PathError as exc:
                 raise ProblemError(
                     study.source,
