@@ -177,7 +177,9 @@ def write_run_folder(results_dir: Path, command: str, label: str, files: dict[st
     """Create ``results_dir/<time>-<command>-<label>/`` holding ``files`` atomically.
 
     ``files`` maps a file name to a function that writes that file at the given path.
-    Raises ProblemError (option --results) if the folder cannot be written.
+    ``report.html`` is then built from the files written (see :mod:`optimizer.html_report`)
+    unless ``files`` has its own. Raises ProblemError (option --results) if the folder
+    cannot be written, and InvariantViolation if the report cannot be built.
     """
     results_dir = Path(results_dir)
     check_results_dir(results_dir)
@@ -198,6 +200,11 @@ def write_run_folder(results_dir: Path, command: str, label: str, files: dict[st
     try:
         for name, write in files.items():
             write(tmp / name)
+        # the report reads the files just written: its numbers are the run's by construction
+        from optimizer.html_report import REPORT_NAME, write_report
+
+        if REPORT_NAME not in files:
+            write_report(tmp, command)
         n = 1
         while final.exists():  # two runs in one microsecond
             n += 1

@@ -269,6 +269,7 @@ def test_solve_run_folder(solved):
     assert {p.name for p in folder.iterdir()} == {
         "family.json",
         "library.csv",
+        "report.html",
         "products.csv",
         "solver.log",
         "problem.toml",

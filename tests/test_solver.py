@@ -345,6 +345,7 @@ def test_solve_command_writes_run_folder_and_json(tmp_path, write_problem, tiny_
     assert {p.name for p in folder.iterdir()} == {
         "solution.json",
         "ranked.csv",
+        "report.html",
         "solver.log",
         "problem.toml",
         "designs.toml",
