@@ -15,6 +15,7 @@ import numpy as np
 from optimizer.designs import DesignResult, evaluate_specs
 from optimizer.evaluator import COST_COMPONENTS, Evaluator
 from optimizer.problem import Problem, ProblemError, Requirements
+from optimizer.solver import progress
 from optimizer.solver.architectures import ArchitectureRow, decision_table
 from optimizer.solver.exhaustive import exhaustive_search
 from optimizer.solver.infeasibility import explain_infeasible, explain_requirements
@@ -167,6 +168,7 @@ def solve(
     evaluator = Evaluator(problem)
     if method == "auto":
         method = choose_method(problem)
+    progress.begin()
     if method == "milp" and too_many_contents(evaluator):
         from optimizer.solver.generation import generated_search
 
@@ -182,10 +184,12 @@ def solve(
             requirements=requirements,
         )
     elif method == "exhaustive":
+        progress.stage("pricing every design (exhaustive reference)")
         outcome = exhaustive_search(
             evaluator, top=top, requirements=requirements, deadline=deadline
         )
     elif method == "subset_dp":
+        progress.stage("pricing candidate dies and combining them (subset DP)")
         outcome = subset_dp(
             evaluator, top=top, requirements=requirements, deadline=deadline, source=source
         )
@@ -213,6 +217,7 @@ def solve(
             "no design found within the time limit (it counts from the start of the "
             "command, loading and pricing included); raise --time-limit",
         )
+    progress.stage("checking the answer")
     designs = []
     refined_gain = 0.0
     for rank, item in enumerate(outcome.ranked, start=1):
@@ -252,6 +257,7 @@ def solve(
         tolerance=tolerance,
     )
     gap = relative_gap(outcome, evaluator)
+    progress.settle(designs[0].profit, bound, 0.0 if outcome.proven else gap)
     rows: list[ArchitectureRow] = []
     if architectures:
         table_deadline = deadline
@@ -269,6 +275,7 @@ def solve(
             deadline=table_deadline,
             split=split_mixes,
         )
+    progress.finish()
     return Solution(
         designs=designs,
         method=outcome.method,

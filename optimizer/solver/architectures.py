@@ -19,6 +19,7 @@ from optimizer.designs import DesignResult, evaluate_specs
 from optimizer.evaluator import COST_COMPONENTS, Evaluator
 from optimizer.invariants import InvariantViolation
 from optimizer.problem import Requirements
+from optimizer.solver import progress
 from optimizer.solver.candidates import OutOfTime, build_candidates
 from optimizer.solver.search import (
     RankedSelection,
@@ -217,6 +218,10 @@ def decision_table(
     pairs.sort(key=lambda pair: (known.get(pair, math.inf), pair[1], pair[0]))
     for index, (g, n) in enumerate(pairs):
         packaging = problem.packaging[g]
+        dies = "1 die" if n == 1 else f"{n} dies"
+        progress.stage(
+            f"decision table: {packaging.name}, {dies} (row {index + 1} of {len(pairs)})"
+        )
         if (packaging.name, n) == best_key:
             rows.append(_optimum_row(packaging.name, optimum, optimum_proven, optimum_bound))
             continue
@@ -285,6 +290,7 @@ def _second_pass(
         if time.perf_counter() >= deadline:
             break
         row = rows[i]
+        progress.stage(f"decision table, rows still open: {row.label} ({done + 1} of {len(redo)})")
         g = problem.packaging_index(row.packaging)
         found = _row_search(
             evaluator,
@@ -451,6 +457,9 @@ def _split_by_mix(
     found_rows: dict[tuple[str, int], list[ArchitectureRow]] = {}
     for done, (row, g, counts) in enumerate(jobs):
         text = mix_text(problem, counts)
+        progress.stage(
+            f"decision table, process mixes: {row.label}, {text} ({done + 1} of {len(jobs)})"
+        )
         own = [0] * len(problem.process)
         for die in row.design.dies:
             own[index[die.process]] += die.copies

@@ -20,6 +20,7 @@ import numpy as np
 
 from optimizer.evaluator import DieBatch, DiePrices, Evaluator
 from optimizer.problem import Requirements
+from optimizer.solver import progress
 
 
 @dataclass(frozen=True)
@@ -230,13 +231,16 @@ def _price_in_chunks(evaluator: Evaluator, batch: DieBatch, deadline: float | No
     if deadline is not None and time.perf_counter() > deadline:
         raise OutOfTime
     if deadline is None or len(batch) == 0:
-        return evaluator.price_dies(batch)
+        prices = evaluator.price_dies(batch)
+        progress.priced(len(batch))
+        return prices
     parts = []
     first, size = 0, 1_000
     while first < len(batch):
         rows = np.arange(first, min(first + size, len(batch)))
         began = time.perf_counter()
         parts.append(evaluator.price_dies(_take_batch(batch, rows)))
+        progress.priced(rows.size)
         now = time.perf_counter()
         if now > deadline:
             raise OutOfTime

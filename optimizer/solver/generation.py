@@ -28,6 +28,7 @@ import numpy as np
 
 from optimizer.evaluator import Evaluator
 from optimizer.problem import Requirements
+from optimizer.solver import progress
 from optimizer.solver.candidates import (
     CandidateSet,
     OutOfTime,
@@ -211,6 +212,14 @@ def generated_search(
             if architecture is None or architecture[1] == n:
                 programs.append((g, n))
     log: list[str] = []
+    # only the search of the whole problem tells its stage (an architecture row's is
+    # part of the decision table)
+    tells = architecture is None
+
+    def tell(text: str) -> None:
+        if tells:
+            progress.stage(text)
+
     known: dict[int, CandidateSet] = dict(candidates or {})
     keys: set[bytes] = set()
     for g, cset in (candidates or {}).items():
@@ -255,6 +264,7 @@ def generated_search(
 
     generated = 0
     timed_out = False
+    tell("generating candidate dies: a first few contents")
     try:
         generated += add(_starting_contents(evaluator, [n for _, n in programs]))
     except OutOfTime:
@@ -271,6 +281,10 @@ def generated_search(
             if out_of_time():
                 timed_out = True
                 break
+            tell(
+                f"generating candidate dies: [{problem.packaging[g].name}, {n} dies], "
+                f"round {rounds + 1}"
+            )
             if _carrier_too_small(evaluator, g) or n * floors[2] < _least_area(evaluator):
                 duals[(g, n)] = (None, math.inf, rounds)  # no design of this packaging
                 break
@@ -335,6 +349,7 @@ def generated_search(
         )
 
     priced: dict[Selection, float] = dict(seed or {})
+    tell("searching the candidate dies generated")
     outcome = search(priced)
     priced.update(outcome.priced)
     threshold = (
@@ -347,6 +362,7 @@ def generated_search(
     screen_done = False
     sizes = {g: len(cset) for g, cset in known.items()}
     if math.isfinite(threshold) and not timed_out:
+        tell("screening contents that could beat the best design found")
         limit_cost = threshold + tie_tolerance(revenue, threshold) + CUTOFF_RTOL * abs(threshold)
         wanted = []
         for prices, value, _ in duals.values():
@@ -391,6 +407,7 @@ def generated_search(
         if any(mask.any() for mask in grown.values()):
             # designs of the dies known before were searched: only those holding a new
             # die are left, and the proofs of the two searches together cover all
+            tell("searching again with the dies screened in")
             again = search(priced, require=grown)
             priced.update(again.priced)
             outcome = _merged(outcome, again, top)

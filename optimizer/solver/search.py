@@ -21,6 +21,7 @@ import numpy as np
 
 from optimizer.evaluator import Evaluator
 from optimizer.problem import Requirements
+from optimizer.solver import progress
 from optimizer.solver.candidates import (
     CandidateSet,
     OutOfTime,
@@ -167,6 +168,11 @@ def milp_search(
     market = problem.market
     revenue = market.unit_price * market.volume
     log: list[str] = []
+    # an architecture row's search is a stage of the decision table: it tells no stage;
+    # only a search of the whole problem tells its bound (column generation's searches
+    # cover the dies generated so far)
+    tells_stage = architecture is None
+    tells_bound = tells_stage and require is None and ceiling is None and candidates is None
     # Candidate dies do not depend on the market section: scenarios that differ only there
     # (price, volume) can share one priced candidate table through ``candidate_cache``.
     need = requirements if requirements is not None else problem.requirements
@@ -180,6 +186,8 @@ def milp_search(
     cached = candidate_cache.get(key) if candidate_cache is not None else None
     if candidates is not None:
         cached = candidates
+    if tells_stage and cached is None:
+        progress.stage("listing the block contents a die could hold")
     contents = enumerate_contents(evaluator) if cached is None else None
     candidates = {}
     # one-die packagings first: their few candidates give a design to report even when
@@ -205,6 +213,8 @@ def milp_search(
     try:
         for g in order:
             packaging = problem.packaging[g]
+            if tells_stage and cached is None:
+                progress.stage(f"pricing candidate dies: packaging {packaging.name}")
             cset = (
                 cached[g]
                 if cached is not None
@@ -237,6 +247,7 @@ def milp_search(
         # total cost = revenue - profit: volume x cost + one-time costs - salvage revenue;
         # infinite for an invalid product (carrier too large, clashing targets)
         exact[sel] = float(revenue - prices.profit[0])
+        progress.found(prices.profit)
 
     def remaining() -> float | None:
         return None if deadline is None else deadline - time.perf_counter()
@@ -285,6 +296,8 @@ def milp_search(
         for total, sel in designs:
             if in_scope(sel):
                 exact.setdefault(sel, total)
+        if designs and progress.listening():
+            progress.found(revenue - min(total for total, _ in designs))
         return count
 
     dp_stats = {"dp_programs": 0, "dp_closed": 0, "dp_nodes": 0}
@@ -312,6 +325,7 @@ def milp_search(
                 prices = price_selections(evaluator, candidates[g], fresh)
                 for sel, profit in zip(fresh, prices.profit, strict=True):
                     exact[sel] = float(revenue - profit)
+                progress.found(prices.profit)
                 stream.limit = min(stream.limit, cutoff())
 
         while not out_of_time() and stream.listed < MAX_LISTED:
@@ -378,6 +392,7 @@ def milp_search(
             prices = price_selections(evaluator, cset, sels)
             for sel, profit in zip(sels, prices.profit, strict=True):
                 exact[sel] = float(revenue - profit)
+            progress.found(prices.profit)
 
     # an architecture's search seeded with the designs of an earlier search (the
     # decision table) already holds that search's DP designs
@@ -386,6 +401,8 @@ def milp_search(
         for sel, total in (seed or {}).items()
     )
     if DP_SEEDING and not pricing_cut and require is None and mix is None and not seeded:
+        if tells_stage:
+            progress.stage("first designs from the subset DP")
         _add_dp_seeds(evaluator, candidates, top, deadline, architecture, in_scope, exact, log)
 
     timed_out = pricing_cut
@@ -393,6 +410,8 @@ def milp_search(
     unexplored: list[float] = [-math.inf] if pricing_cut else []
     programs: list[tuple[float, Columns, np.ndarray | None]] = []
     n_programs = 0
+    if tells_stage:
+        progress.stage("bounding every (packaging, die count) together")
     # Every packaging's die counts 2..n_max are first bounded together by one program.
     # When that bound is open, each die count gets a program built on the same rows and
     # columns, so the joint program's duals bound it without a solve (`dual_bound`).
@@ -478,8 +497,10 @@ def milp_search(
             timed_out = True
             unexplored.append(cheap)
             continue
-        listed = close_by_dp(columns)
         name = f"[{problem.packaging[columns.packaging_index].name}, {columns.n_dies} dies]"
+        if tells_stage:
+            progress.stage(f"bounding and searching {name} ({index + 1} of {len(programs)})")
+        listed = close_by_dp(columns)
         if listed > -math.inf:
             if not open_bound(listed):
                 log.append(f"{name} closed by listing its designs in order of their DP bound")
@@ -567,6 +588,16 @@ def milp_search(
             timed_out = bool(open_subs)
             break
         open_subs = workable
+        if tells_stage:
+            n_open = len(open_subs)
+            progress.stage(f"proving: {n_open} program{'s' if n_open > 1 else ''} still open")
+        if tells_bound and progress.listening():
+            # the bound the search would return if it stopped now (as computed below)
+            still_open = [
+                s.bound for s in subs if (s.failed or not s.exhausted) and open_bound(s.bound)
+            ]
+            best_cost = min((v for v in exact.values() if math.isfinite(v)), default=math.inf)
+            progress.bounded(revenue - min([best_cost, *still_open, *unexplored]))
         # lowest bound first, but a program whose last round ran out of its time share
         # without a design waits until the others have had theirs
         sub = min(open_subs, key=lambda s: (s.stalls, s.bound))
@@ -686,6 +717,7 @@ def _add_dp_seeds(
         for sel, value in zip(group, profit, strict=True):
             # total cost = revenue - profit, infinite for an invalid product
             exact[sel] = float(revenue - value)
+        progress.found(profit)
     finite = [exact[s] for s in found if math.isfinite(exact[s])]
     log.append(
         f"subset DP seeds: {len(found)} designs priced, best total cost "
