@@ -556,7 +556,14 @@ def solve(
     options = _requirement_options(require_die_yield, require_sigma, require_defect_level)
     problem = _load(problem_path)
     if isinstance(problem, _LifeFile):
-        _solve_life(problem_path, problem.plan, deadline, as_json, results_dir if write else None)
+        _solve_life(
+            problem_path,
+            problem.plan,
+            deadline,
+            as_json,
+            results_dir if write else None,
+            table_time,
+        )
         return
     if _is_family(problem):
         _family_options(ctx, problem_path)
@@ -573,29 +580,43 @@ def solve(
         return
     mandate = _requirements(problem, options)
     table = dict(architectures=table_time > 0, table_time=table_time, split_mixes=mixes)
-    if mandate is not None and mandate.any():
-        priced = price_requirements(
-            problem,
-            mandate,
-            top=top,
-            source=str(problem_path),
-            method=method,
-            deadline=deadline,
-            **table,
-        )
-        solution, free = priced.mandated, priced.free
-    else:
-        solution = run_solver(
-            problem, top=top, method=method, deadline=deadline, source=str(problem_path), **table
-        )
-        priced = free = None
-    if by_architecture:
-        if not solution.architectures:
-            raise ProblemError(
-                "--by-architecture", "", "needs the architecture table; set --table-time above 0"
+    from optimizer.live import live_progress
+
+    console = _console()
+    # on a terminal the solve shows its progress in place, erased before the result
+    with live_progress(console, enabled=not as_json, currency=problem.market.currency) as reporter:
+        if mandate is not None and mandate.any():
+            priced = price_requirements(
+                problem,
+                mandate,
+                top=top,
+                source=str(problem_path),
+                method=method,
+                deadline=deadline,
+                **table,
             )
-        solution = dataclasses.replace(solution, designs=solution.distinct_architectures(top))
-    flips = _flips(problem_path, problem, solution)
+            solution, free = priced.mandated, priced.free
+        else:
+            solution = run_solver(
+                problem,
+                top=top,
+                method=method,
+                deadline=deadline,
+                source=str(problem_path),
+                **table,
+            )
+            priced = free = None
+        if by_architecture:
+            if not solution.architectures:
+                raise ProblemError(
+                    "--by-architecture",
+                    "",
+                    "needs the architecture table; set --table-time above 0",
+                )
+            solution = dataclasses.replace(solution, designs=solution.distinct_architectures(top))
+        if reporter is not None:
+            reporter.stage("where the choice flips: break-even of each main input")
+        flips = _flips(problem_path, problem, solution)
     payload = solution.to_dict()
     if flips is not None:
         payload["flips"] = {
@@ -630,7 +651,6 @@ def solve(
             payload["run_folder"] = str(folder)
         typer.echo(json_text(payload))
         return
-    console = _console()
     console.print(report.solution_view(solution))
     if solution.architectures:
         console.print(
@@ -1041,20 +1061,22 @@ def _evaluate_life(problem_path: Path, plan, only: str | None, as_json: bool) ->
     console.print(report.CAUTION, style="dim", markup=False)
 
 
-def _solve_life(problem_path: Path, plan, deadline, as_json: bool, results_dir) -> None:
+def _solve_life(
+    problem_path: Path, plan, deadline, as_json: bool, results_dir, table_time: float = 0.0
+) -> None:
     from optimizer import life_report
     from optimizer.solver.life import solve_life
 
     limit = None if deadline is None else max(0.0, deadline - time.perf_counter())
-    solution = solve_life(plan, time_limit=limit, source=str(problem_path))
+    solution = solve_life(
+        plan,
+        time_limit=limit,
+        source=str(problem_path),
+        table=table_time > 0,
+        table_time=table_time,
+    )
     currency = plan.base.market.currency
-    values = {"life optimum": solution.best}
-    if solution.first_period_best is not None:
-        first = solution.first_period_best
-        if life_report.design_line(first.periods[0].result) != life_report.design_line(
-            solution.best.periods[0].result
-        ):
-            values[f"picked on {plan.labels[0]} alone"] = first
+    values = life_report.curves(solution, plan.labels[0])
     payload = {
         "problem": plan.base.title,
         "npv": solution.best.npv,
@@ -1062,8 +1084,10 @@ def _solve_life(problem_path: Path, plan, deadline, as_json: bool, results_dir) 
         "npv_bound": solution.npv_bound,
         "gap": solution.gap,
         "seconds": solution.seconds,
+        "targets": plan.targets,
         "design": solution.best.periods[0].result.to_dict(),
         "life": {name: life_report.life_dict(v) for name, v in values.items()},
+        "architectures": [life_report.row_dict(r) for r in solution.rows],
     }
     folder = None
     if results_dir is not None:

@@ -175,7 +175,8 @@ def cumulative_figure(values: dict, currency: str, title: str):
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    figure, axes = plt.subplots(figsize=(8.0, 4.6))
+    figure, axes = plt.subplots(figsize=(9.0, 4.8))
+    colours = plt.get_cmap("tab20").colors
     series = {}
     for index, (name, value) in enumerate(values.items()):
         x = list(range(1, len(value.periods) + 1))
@@ -187,6 +188,7 @@ def cumulative_figure(values: dict, currency: str, title: str):
             marker="o" if index == 0 else ".",
             linewidth=2.2 if index == 0 else 1.2,
             label=name,
+            color=colours[(2 * index) % 20 + (index // 10) % 2],
             zorder=3 if index == 0 else 2,
         )
     names = list(series)
@@ -215,7 +217,8 @@ def cumulative_figure(values: dict, currency: str, title: str):
     axes.set_xlabel("period")
     axes.set_ylabel(f"cumulative discounted value [M {currency}]")
     axes.set_title(title, fontsize=10)
-    axes.legend(fontsize=7, loc="upper left")
+    # beside the axes: a dozen curves would hide each other's ends under a legend
+    axes.legend(fontsize=7, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)
     figure.tight_layout()
     return figure
 
