@@ -225,3 +225,14 @@ def test_a_time_limit_gives_the_best_found_or_one_line():
             assert "allow more time" in exc.message
             continue
         assert found.proven or found.npv_bound >= found.best.npv
+
+
+def test_a_life_no_design_can_keep_says_so_in_one_line():
+    # a die-yield mandate that only a mature line could meet: the young first period
+    # has no design that keeps it, so no design keeps it over the life
+    data = tomllib.loads(EDGE.read_text())
+    data["requirements"] = {"min_die_yield": 0.999}
+    plan = life_plan(_with_life(data, period="year", volumes=[1e6, 1e6], discount_rate=0.1))
+    with pytest.raises(ProblemError) as caught:
+        solve_life(plan)
+    assert "no design keeps the file's rules in every period" in caught.value.message

@@ -196,6 +196,9 @@ def gross_dies_exact(usable_radius_mm: float, site_width_mm: float, site_height_
 # Exact counts by rounded footprint (radius, short side, long side); a quarter turn maps
 # the grid onto itself, so sorted sides share an entry.
 _COUNT_CACHE: dict[tuple[float, float, float], int] = {}
+# whole calls of gross_dies_exact_many, oldest dropped first
+_CALL_CACHE: dict[tuple, np.ndarray] = {}
+_CALL_CACHE_SIZE = 64
 
 
 def _count_threads() -> int:
@@ -224,6 +227,7 @@ def _count_footprints(keys: np.ndarray) -> np.ndarray:
 def clear_count_cache() -> None:
     """Forget cached exact counts (benchmarks time cold runs with it)."""
     _COUNT_CACHE.clear()
+    _CALL_CACHE.clear()
 
 
 def _unique_footprints(r: np.ndarray, lo: np.ndarray, hi: np.ndarray):
@@ -391,7 +395,20 @@ def gross_dies_exact_many(usable_radius_mm, site_width_mm, site_height_mm) -> np
     there is enough work (environment variable DIEPLAN_COUNT_WORKERS, default the CPU
     count).
     """
-    return _exact_many(usable_radius_mm, site_width_mm, site_height_mm, bisect=True)
+    r, w, h = (
+        np.asarray(v, dtype=float) for v in (usable_radius_mm, site_width_mm, site_height_mm)
+    )
+    # the same arrays come again and again (every period of a life prices the same
+    # candidate dies): whole calls are remembered too, by their bytes
+    key = (r.shape, w.shape, h.shape, r.tobytes(), w.tobytes(), h.tobytes())
+    found = _CALL_CACHE.get(key)
+    if found is None:
+        found = _exact_many(r, w, h, bisect=True)
+        found.setflags(write=False)
+        if len(_CALL_CACHE) >= _CALL_CACHE_SIZE:
+            _CALL_CACHE.pop(next(iter(_CALL_CACHE)))
+        _CALL_CACHE[key] = found
+    return found.copy()
 
 
 def wafer_map(usable_radius_mm: float, site_width_mm: float, site_height_mm: float) -> np.ndarray:

@@ -352,6 +352,7 @@ class _LifeSearch:
                     candidates=cands,
                     deadline=deadline,
                     architecture=architecture,
+                    dp_seeds=False,
                 )
             except OutOfTime:
                 bounds.append(math.inf)
@@ -439,6 +440,12 @@ def solve_life(
     # every period's own best design, and the first period's pick, are designs for the life
     best_value = _best([*found, first_value])
     incumbent = best_value.npv if best_value is not None else -math.inf
+    if any(b == -math.inf for b in bounds):
+        # a period where no design keeps the rules (volume and one-time scaling leave
+        # the rules as they are): no design keeps them over the life
+        raise ProblemError(
+            source, "life", "no design keeps the file's rules in every period of the life"
+        )
     timed_out = not all(math.isfinite(b) for b in bounds)
     listed: list[LifeValue] = []
     proven = False

@@ -140,6 +140,7 @@ def milp_search(
     seed: dict[Selection, float] | None = None,
     require: dict[int, np.ndarray] | None = None,
     ceiling: float | None = None,
+    dp_seeds: bool = True,
 ) -> SearchOutcome:
     """Proven top-``top`` designs by integer programming with exact verification.
 
@@ -162,6 +163,8 @@ def milp_search(
     others having been searched before (the proof covers both together). With
     ``ceiling`` (a total cost) every design costing at most that much is searched for,
     however many there are: they are all in ``priced`` when the search is proven.
+    ``dp_seeds=False`` skips the subset-DP first designs (searches run many times over,
+    such as a life's per-period bounds, close as fast without them).
     """
     start = time.perf_counter()
     problem = evaluator.problem
@@ -400,7 +403,14 @@ def milp_search(
         math.isfinite(total) and sel.n_dies > 1 and in_scope(sel)
         for sel, total in (seed or {}).items()
     )
-    if DP_SEEDING and not pricing_cut and require is None and mix is None and not seeded:
+    if (
+        DP_SEEDING
+        and dp_seeds
+        and not pricing_cut
+        and require is None
+        and mix is None
+        and not seeded
+    ):
         if tells_stage:
             progress.stage("first designs from the subset DP")
         _add_dp_seeds(evaluator, candidates, top, deadline, architecture, in_scope, exact, log)
