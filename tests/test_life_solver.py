@@ -236,3 +236,28 @@ def test_a_life_no_design_can_keep_says_so_in_one_line():
     with pytest.raises(ProblemError) as caught:
         solve_life(plan)
     assert "no design keeps the file's rules in every period" in caught.value.message
+
+
+def test_a_listened_life_solve_reports_npv_not_period_profits():
+    # the live view is told the life's NPV and bound, never a period problem's profit,
+    # and the answer is the same with or without a listener
+    from optimizer.solver.progress import Progress, reporting
+
+    plan = life_plan(_random_life(5), "seed5")
+    events = []
+    with reporting(Progress(events.append, interval=0.0)):
+        heard = solve_life(plan, table=True)
+    quiet = solve_life(plan, table=True)
+    assert heard.best.npv == quiet.best.npv
+    assert [r.npv for r in heard.rows] == pytest.approx([r.npv for r in quiet.rows], nan_ok=True)
+    assert events[-1].final
+    assert events[-1].best_profit == pytest.approx(heard.best.npv, rel=RTOL)
+    assert events[-1].profit_bound == pytest.approx(heard.npv_bound, rel=RTOL)
+    for e in events:
+        if e.best_profit is not None:
+            assert e.best_profit <= heard.best.npv * (1 + RTOL) + 1e-6
+        if e.profit_bound is not None:
+            assert e.profit_bound >= heard.best.npv * (1 - RTOL) - 1e-6
+    priced = [e.candidates_priced for e in events]
+    assert priced == sorted(priced) and priced[-1] > 0
+    assert any("bounding period" in e.stage for e in events)

@@ -44,6 +44,7 @@ from optimizer.invariants import InvariantViolation
 from optimizer.life import LifePlan, one_time_discount, periods
 from optimizer.life_value import LifeValue, life_value
 from optimizer.problem import Problem
+from optimizer.solver import progress
 from optimizer.solver.candidates import OutOfTime, build_candidates, enumerate_contents
 from optimizer.solver.search import PROFIT_RTOL, milp_search, profit_bound
 from optimizer.solver.selection import Selection
@@ -336,24 +337,28 @@ class _LifeSearch:
         packaging = problem.packaging[sel.packaging_index].name
         return self.pricer.value(specs, packaging, name)
 
-    def bounds(self, deadline, architecture=None) -> tuple[list[float], list[LifeValue]]:
+    def bounds(
+        self, deadline, architecture=None, what: str = "the life"
+    ) -> tuple[list[float], list[LifeValue]]:
         """Each period's proven bound (inf where unknown) and each period's best design
         valued over the life, within ``architecture`` if given."""
         bounds: list[float] = []
         found: list[LifeValue] = []
         for k in range(len(self.items)):
+            progress.stage(f"{what}: bounding period {self.items[k].label} of {len(self.items)}")
             try:
                 if deadline is not None and time.perf_counter() > deadline:
                     raise OutOfTime
-                cands = self.price_candidates(k, deadline)
-                best = milp_search(
-                    self.evaluators[k],
-                    top=1,
-                    candidates=cands,
-                    deadline=deadline,
-                    architecture=architecture,
-                    dp_seeds=False,
-                )
+                with progress.inner_searches():
+                    cands = self.price_candidates(k, deadline)
+                    best = milp_search(
+                        self.evaluators[k],
+                        top=1,
+                        candidates=cands,
+                        deadline=deadline,
+                        architecture=architecture,
+                        dp_seeds=False,
+                    )
             except OutOfTime:
                 bounds.append(math.inf)
                 continue
@@ -365,7 +370,7 @@ class _LifeSearch:
         return bounds, found
 
     def listing(
-        self, bounds: list[float], incumbent: float, deadline, architecture=None
+        self, bounds: list[float], incumbent: float, deadline, architecture=None, what="the life"
     ) -> tuple[list[LifeValue], bool]:
         """Every design that could beat ``incumbent`` over the life, valued; and whether
         the list is known to be complete."""
@@ -377,15 +382,19 @@ class _LifeSearch:
         slack = PROFIT_RTOL * max(abs(upper), 1.0)
         floor = incumbent - (upper - bounds[j]) - slack
         ceiling = revenue - floor if math.isfinite(floor) else math.inf
-        unpruned = self.unpruned(deadline)
-        listed = milp_search(
-            evaluator,
-            top=1,
-            candidates=unpruned,
-            ceiling=ceiling,
-            deadline=deadline,
-            architecture=architecture,
+        progress.stage(
+            f"{what}: listing every design that could do better, in {self.items[j].label}"
         )
+        with progress.inner_searches():
+            unpruned = self.unpruned(deadline)
+            listed = milp_search(
+                evaluator,
+                top=1,
+                candidates=unpruned,
+                ceiling=ceiling,
+                deadline=deadline,
+                architecture=architecture,
+            )
         complete = listed.proven and all(math.isfinite(b) for b in bounds)
         sels = sorted(
             (s for s, total in listed.priced.items() if total <= ceiling),
@@ -393,6 +402,7 @@ class _LifeSearch:
         )
         if len(sels) > MAX_LISTED:
             complete, sels = False, sels[:MAX_LISTED]
+        progress.stage(f"{what}: pricing {len(sels)} listed designs over every period")
         values = []
         for sel in sels:
             if deadline is not None and time.perf_counter() > deadline:
@@ -434,12 +444,18 @@ def solve_life(
     # first, the design picked on the first period's numbers: a design to report even
     # when the time limit ends the proof (half the time at most)
     half = None if deadline is None else start + 0.5 * (deadline - start)
-    first_value = _first_period_best(pricer, items[0].problem, source, half)
+    progress.begin()
+    progress.stage(f"the design picked on {items[0].label}'s numbers alone")
+    with progress.inner_searches():
+        first_value = _first_period_best(pricer, items[0].problem, source, half)
     bounds, found = search.bounds(deadline)
     upper = math.fsum(bounds)
     # every period's own best design, and the first period's pick, are designs for the life
     best_value = _best([*found, first_value])
     incumbent = best_value.npv if best_value is not None else -math.inf
+    if best_value is not None:
+        progress.found(best_value.npv)
+    progress.bounded(upper)
     if any(b == -math.inf for b in bounds):
         # a period where no design keeps the rules (volume and one-time scaling leave
         # the rules as they are): no design keeps them over the life
@@ -484,11 +500,13 @@ def solve_life(
         listed=len(listed),
         log=log,
     )
+    progress.settle(solution.best.npv, solution.npv_bound, solution.gap)
     if table:
         ends = [time.perf_counter() + table_time] if table_time is not None else []
         table_deadline = min([*ends, *([deadline] if deadline is not None else [])], default=None)
         solution.rows = _life_table(search, solution, table_deadline)
         solution.seconds = time.perf_counter() - start
+    progress.finish()
     return solution
 
 
@@ -536,7 +554,8 @@ def _life_table(search: _LifeSearch, solution: LifeSolution, deadline) -> list[L
 def _row(search: _LifeSearch, g: int, n: int, seed: LifeValue | None, deadline) -> LifeRow:
     name = search.evaluators[0].problem.packaging[g].name
     try:
-        bounds, found = search.bounds(deadline, architecture=(g, n))
+        what = f"decision table, {name} with {n} dies"
+        bounds, found = search.bounds(deadline, architecture=(g, n), what=what)
     except OutOfTime:
         return LifeRow(name, n, seed, False, math.inf)
     if any(b == -math.inf for b in bounds):
@@ -549,7 +568,9 @@ def _row(search: _LifeSearch, g: int, n: int, seed: LifeValue | None, deadline) 
     complete = False
     if all(math.isfinite(b) for b in bounds):
         try:
-            listed, complete = search.listing(bounds, incumbent, deadline, architecture=(g, n))
+            listed, complete = search.listing(
+                bounds, incumbent, deadline, architecture=(g, n), what=what
+            )
         except OutOfTime:
             listed = []
         best = _best([best, *listed])

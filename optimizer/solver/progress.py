@@ -186,3 +186,33 @@ def finish() -> None:
     progress = _current.get()
     if progress is not None:
         progress.finish()
+
+
+class _DiesOnly:
+    """A listener for searches inside a larger solve: their dies priced count, their
+    profits and bounds do not (they are not the objective being told)."""
+
+    def __init__(self, outer: Progress):
+        self._outer = outer
+
+    def priced(self, count: int) -> None:
+        self._outer.priced(count)
+
+    def __getattr__(self, name: str):
+        return lambda *args, **kwargs: None
+
+
+@contextmanager
+def inner_searches() -> Iterator[None]:
+    """Searches run inside this block report only the candidate dies they price (a
+    life's per-period problems, a family's products: their profits are not the
+    objective the listener is shown)."""
+    outer = _current.get()
+    if outer is None:
+        yield
+        return
+    token = _current.set(_DiesOnly(outer))  # type: ignore[arg-type]
+    try:
+        yield
+    finally:
+        _current.reset(token)
