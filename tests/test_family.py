@@ -235,3 +235,26 @@ def test_product_tables_equal_brute_force(seed):
         assert all(r.proven for r in rows)
         (optimum,) = [r for r in rows if r.optimum]
         assert optimum.family_profit == pytest.approx(solution.profit, rel=RTOL)
+
+
+def test_a_listened_family_solve_reports_the_family_profit():
+    # the live view hears the family's profit and bound, not a product search's
+    from pathlib import Path
+
+    from optimizer.family import load_family
+    from optimizer.solver.progress import Progress, reporting
+
+    path = Path(__file__).resolve().parent.parent / "problems" / "accelerator_family.toml"
+    family = load_family(path)
+    events = []
+    with reporting(Progress(events.append, interval=0.0)):
+        heard = solve_family(family)
+    assert events[-1].final
+    assert events[-1].best_profit == pytest.approx(heard.profit, rel=1e-12)
+    assert events[-1].profit_bound == pytest.approx(heard.profit_bound, rel=1e-12)
+    for e in events:
+        if e.best_profit is not None:
+            assert e.best_profit <= heard.profit * (1 + 1e-12)
+        if e.profit_bound is not None:
+            assert e.profit_bound >= heard.profit * (1 - 1e-12)
+    assert any(e.stage.startswith("product ") for e in events)

@@ -50,6 +50,7 @@ from optimizer.evaluator import Evaluator
 from optimizer.family import Family
 from optimizer.invariants import InvariantViolation
 from optimizer.problem import Problem
+from optimizer.solver import progress
 from optimizer.solver.candidates import build_candidates, enumerate_contents
 from optimizer.solver.search import PROFIT_RTOL, milp_search, profit_bound
 from optimizer.solver.selection import selection_specs
@@ -243,6 +244,18 @@ def solve_family(
     method: str = "milp",
 ) -> FamilySolution:
     """The most profitable family design, proven over the stated choices."""
+    # the listener hears the family's profit; the products' searches tell only the
+    # dies they price
+    tell = progress.current()
+    tell.begin()
+    with progress.inner_searches():
+        solution = _solve_family(family, time_limit, source, method, tell)
+    tell.settle(solution.profit, solution.profit_bound, solution.gap)
+    tell.finish()
+    return solution
+
+
+def _solve_family(family: Family, time_limit, source: str, method: str, tell) -> FamilySolution:
     from optimizer.solver import solve
 
     start = time.perf_counter()
@@ -254,6 +267,7 @@ def solve_family(
     # 1. each product alone: the premium's reference and a first family design
     alone = []
     for name, problem in zip(names, problems, strict=True):
+        tell.stage(f"product {name} alone")
         try:
             found = solve(
                 problem, top=1, refine=False, method=method, source=source, deadline=deadline
@@ -271,8 +285,11 @@ def solve_family(
     # 2. each product's bound with shared costs split among the products that could share
     scaled = [scaled_problem(p, share, problems) for p in problems]
     evaluators = [Evaluator(p) for p in scaled]
+    if math.isfinite(incumbent):
+        tell.found(incumbent)
     candidates = []
     bounds = []
+    tell.stage("pricing candidate dies with shared NRE split over the products")
     for problem, evaluator in zip(scaled, evaluators, strict=True):
         contents = enumerate_contents(evaluator)
         split = nre_split(problem, problems)
@@ -296,6 +313,7 @@ def solve_family(
     bounds, upper = [], math.inf
     best_fractions = shares.fractions()
     for step in range(max(SUBGRADIENT_STEPS, 1)):
+        tell.stage(f"bounding each product, NRE shares step {step + 1}")
         found = [
             milp_search(ev, top=1, candidates=c, deadline=deadline)
             for ev, c in zip(evaluators, candidates, strict=True)
@@ -306,6 +324,7 @@ def solve_family(
         ]
         if sum(now) < upper:
             upper, bounds, best_fractions = sum(now), now, shares.fractions()
+            tell.bounded(upper)
         picks = [f.ranked[0].selection if f.ranked else None for f in found]
         if any(p is None for p in picks) or not math.isfinite(sum(now)):
             break
@@ -320,6 +339,7 @@ def solve_family(
         value = _combine(items)[0]
         if value > incumbent:
             incumbent, chosen = value, items
+            tell.found(incumbent)
         if upper - incumbent <= PROFIT_RTOL * max(abs(incumbent), 1.0):
             break
         if not shares.step(picks, 0.5 / (step + 1)):
@@ -335,6 +355,7 @@ def solve_family(
     delta = upper - incumbent if math.isfinite(incumbent) else 0.01 * max(abs(upper), 1.0)
     seeds: list[dict] = [{} for _ in problems]
     while True:
+        tell.stage("listing each product's designs that could be in a better family")
         lists, complete = _lists(
             names,
             problems,
@@ -349,6 +370,7 @@ def solve_family(
             deadline,
             log,
         )
+        tell.stage(f"choosing the best combination of {sum(len(x) for x in lists)} designs")
         pick, value, exact = _best_combination(lists, deadline)
         complete &= exact
         if value > incumbent:

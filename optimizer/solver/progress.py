@@ -216,3 +216,18 @@ def inner_searches() -> Iterator[None]:
         yield
     finally:
         _current.reset(token)
+
+
+class _Silent:
+    """Stands in for a listener when no one listens."""
+
+    def __getattr__(self, name: str):
+        return lambda *args, **kwargs: None
+
+
+def current() -> Progress | _Silent:
+    """The listener of this context, or a stand-in that ignores every report: a solve
+    made of inner searches keeps it to tell its own objective while the inner searches
+    run under :func:`inner_searches`."""
+    found = _current.get()
+    return found if found is not None else _Silent()
