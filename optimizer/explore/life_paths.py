@@ -31,7 +31,6 @@ kind of path; they are checked here, with the plan's units.
 from __future__ import annotations
 
 import copy
-import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -42,6 +41,7 @@ from optimizer.explore.paths import (
     PathError,
     Step,
     apply_values,
+    encode_number,
     parse_path,
     read_value,
 )
@@ -112,19 +112,7 @@ class LifePath:
 
     def encode(self, value: float) -> object:
         """The value as the file writes it: with its unit, as an integer, or a float."""
-        value = float(value)
-        if not math.isfinite(value):
-            raise PathError(f"{value} is not a finite number; use a finite value")
-        if self.integer:
-            whole = round(value)
-            if abs(value - whole) > 1e-9 * max(1.0, abs(value)):
-                raise PathError(f"takes whole numbers only (got {value:g}); use an integer")
-            return int(whole)
-        if self.unit is not None:
-            if value < 0:
-                raise PathError(f"a {self.unit.name} cannot be negative (got {value:g})")
-            return f"{value!r} {self.unit_text}"
-        return value
+        return encode_number(self, value)
 
 
 AnyPath = FieldPath | LifePath

@@ -110,20 +110,26 @@ class FieldPath:
 
     def encode(self, value: float) -> object:
         """The value as the file writes it: with its unit, as an integer, or a float."""
-        value = float(value)
-        if not math.isfinite(value):
-            raise PathError(f"{value} is not a finite number; use a finite value")
-        if self.integer:
-            whole = round(value)
-            if abs(value - whole) > 1e-9 * max(1.0, abs(value)):
-                raise PathError(f"takes whole numbers only (got {value:g}); use an integer")
-            return int(whole)
-        if self.unit is not None:
-            # said before the schema's range check: a negative draw is the usual slip
-            if value < 0:
-                raise PathError(f"a {self.unit.name} cannot be negative (got {value:g})")
-            return f"{value!r} {self.unit_text}"
-        return value
+        return encode_number(self, value)
+
+
+def encode_number(path, value: float) -> object:
+    """``value`` as the file writes the number ``path`` names (a path with ``integer``,
+    ``unit`` and ``unit_text``): with its unit, as an integer, or a float."""
+    value = float(value)
+    if not math.isfinite(value):
+        raise PathError(f"{value} is not a finite number; use a finite value")
+    if path.integer:
+        whole = round(value)
+        if abs(value - whole) > 1e-9 * max(1.0, abs(value)):
+            raise PathError(f"takes whole numbers only (got {value:g}); use an integer")
+        return int(whole)
+    if path.unit is not None:
+        # said before the schema's range check: a negative draw is the usual slip
+        if value < 0:
+            raise PathError(f"a {path.unit.name} cannot be negative (got {value:g})")
+        return f"{value!r} {path.unit_text}"
+    return value
 
 
 def _unwrap(annotation: object) -> tuple[object, bool]:
