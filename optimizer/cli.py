@@ -1,6 +1,7 @@
 """The `dieplan` command line: a thin shell over the library.
 
-Commands parse options, call the library and hand results to report.py. Whatever the
+Commands parse options, call :mod:`optimizer.api` (which runs the library and builds the
+JSON objects, tables and run-folder files) and hand results to report.py. Whatever the
 command, a bad input (file, option or environment) is one line
 ``dieplan: WHERE: what is wrong; what to do`` on stderr and exit code 2; an answer that
 breaks its own checks is one ``internal error`` line and exit code 3; Ctrl-C or SIGTERM
@@ -18,7 +19,6 @@ tests/test_startup.py guards this.
 
 from __future__ import annotations
 
-import dataclasses
 import gc
 import math
 import os
@@ -40,7 +40,7 @@ from typer.core import TyperGroup
 
 # Only light modules here: --help and --version must not load numpy, numba, scipy, pint,
 # pandas or matplotlib. Each command imports the library parts it uses when it runs.
-from optimizer import __version__, report
+from optimizer import __version__, api, report
 from optimizer.errors import ProblemError
 from optimizer.invariants import InvariantViolation
 from optimizer.outputs import (
@@ -353,13 +353,12 @@ def check(problem_path: ProblemPath) -> None:
     from optimizer.explore.paths import check_uncertain
 
     preflight()
-    problem = _load(problem_path)
-    if _is_family(problem):
-        _check_family(problem_path, problem)
+    loaded = api.load(problem_path)
+    if loaded.kind == "family":
+        _check_family(problem_path, loaded.parsed)
         return
-    plan = None
-    if isinstance(problem, _LifeFile):
-        plan, problem = problem.plan, problem.problem
+    plan = loaded.parsed if loaded.kind == "life" else None
+    problem = loaded.problem
     check_uncertain(problem, str(problem_path))
     # the evaluator (numba, scipy) loads only when there is something to price
     priced = problem.design or problem.requirements.any()
@@ -410,42 +409,28 @@ def evaluate(
     Designs that break a rule or mandate of the file are priced, marked with the rules
     they break and listed after every design that keeps them all.
     """
-    from optimizer.designs import evaluate_design
-    from optimizer.evaluator import Evaluator
-
     preflight()
-    problem = _load(problem_path)
-    if _is_family(problem):
-        _evaluate_family(problem_path, problem, design, as_json)
-        return
-    if isinstance(problem, _LifeFile):
-        _evaluate_life(problem_path, problem.plan, design, as_json)
-        return
-    if not problem.design:
-        raise ProblemError(
-            str(problem_path), "design", "the file has no [[design]] to evaluate; add one"
-        )
-    if design is not None:
-        names = [d.name for d in problem.design]
-        if design not in names:
-            raise ProblemError(
-                "--design",
-                "",
-                f"no design named '{short(design)}' in {problem_path}; use one of {names}",
-            )
-        chosen = [problem.design_named(design)]
-    else:
-        chosen = list(problem.design)
-    evaluator = Evaluator(problem)
-    results = report.by_rules_then_profit(
-        [evaluate_design(evaluator, d, str(problem_path)) for d in chosen]
-    )
+    loaded = api.load(problem_path)
+    priced = api.evaluate(loaded, design)
     if as_json:
         # one shape whatever the number of designs
-        payload = {"problem": problem.title, "designs": [r.to_dict() for r in results]}
-        typer.echo(json_text(payload))
+        typer.echo(json_text(priced.to_dict()))
         return
     console = _console()
+    if loaded.kind == "family":
+        _show_family_designs(console, priced)
+    elif loaded.kind == "life":
+        from optimizer import life_report
+
+        for value in priced.values:
+            console.print(life_report.life_view(value, loaded.currency))
+            console.print()
+    else:
+        _show_designs(console, priced.designs)
+    console.print(report.CAUTION, style="dim", markup=False)
+
+
+def _show_designs(console: Console, results: list) -> None:
     for result in results:
         console.print(report.design_breakdown(result))
         console.print()
@@ -460,7 +445,22 @@ def evaluate(
                 style="red",
             )
         )
-    console.print(report.CAUTION, style="dim", markup=False)
+
+
+def _show_family_designs(console: Console, priced) -> None:
+    from optimizer import family_report
+
+    names = priced.products
+    for p in priced.designs:
+        console.print(
+            family_report.family_design_view(
+                p.name, names, p.results, p.total or (0, 0, 0), p.conflict
+            )
+        )
+        console.print()
+    if len(priced.designs) > 1:
+        rows = [(p.name, p.profit, p.breaks_rules) for p in priced.designs]
+        console.print(family_report.designs_overview(rows, priced.problem_file.currency))
 
 
 @app.command()
@@ -544,335 +544,83 @@ def solve(
     """
     # the time limit is wall-clock for the whole command from here, loading included
     deadline = None if time_limit is None else time.perf_counter() + time_limit
-    from optimizer.solver import METHODS
-    from optimizer.solver import solve as run_solver
-    from optimizer.targets import price_requirements
-
-    if method not in METHODS:
-        raise ProblemError(
-            "--method", short(method), f"unknown method; use one of {', '.join(METHODS)}"
-        )
+    api.check_method(method)
     preflight(results_dir if write else None)
-    options = _requirement_options(require_die_yield, require_sigma, require_defect_level)
-    problem = _load(problem_path)
-    if isinstance(problem, _LifeFile):
-        _solve_life(
-            problem_path,
-            problem.plan,
-            deadline,
-            as_json,
-            results_dir if write else None,
-            table_time,
-        )
-        return
-    if _is_family(problem):
+    api.requirement_options(require_die_yield, require_sigma, require_defect_level)
+    loaded = api.load(problem_path)
+    if loaded.kind == "family":
         _family_options(ctx, problem_path)
-        explicit = _given(ctx, "method")
-        _solve_family(
-            problem_path,
-            problem,
-            deadline,
-            method if explicit else None,
-            as_json,
-            results_dir if write else None,
-            table_time=table_time,
-        )
-        return
-    mandate = _requirements(problem, options)
-    table = dict(architectures=table_time > 0, table_time=table_time, split_mixes=mixes)
+        # a family's search keeps its own method unless one is asked for
+        if not _given(ctx, "method"):
+            method = None
     from optimizer.live import live_progress
 
     console = _console()
-    # on a terminal the solve shows its progress in place, erased before the result
-    with live_progress(console, enabled=not as_json, currency=problem.market.currency) as reporter:
-        if mandate is not None and mandate.any():
-            priced = price_requirements(
-                problem,
-                mandate,
-                top=top,
-                source=str(problem_path),
-                method=method,
-                deadline=deadline,
-                **table,
-            )
-            solution, free = priced.mandated, priced.free
-        else:
-            solution = run_solver(
-                problem,
-                top=top,
-                method=method,
-                deadline=deadline,
-                source=str(problem_path),
-                **table,
-            )
-            priced = free = None
-        if by_architecture:
-            if not solution.architectures:
-                raise ProblemError(
-                    "--by-architecture",
-                    "",
-                    "needs the architecture table; set --table-time above 0",
-                )
-            solution = dataclasses.replace(solution, designs=solution.distinct_architectures(top))
-        if reporter is not None:
-            reporter.stage("where the choice flips: break-even of each main input")
-        flips = _flips(problem_path, problem, solution)
-    payload = solution.to_dict()
-    if flips is not None:
-        payload["flips"] = {
-            "challengers": [
-                {"challenger": challenger.to_dict(), "inputs": [r.to_dict() for r in rows]}
-                for challenger, rows in flips
-            ],
-            "note": "each input moved alone with both designs held fixed; sweep re-solves",
-        }
-    if priced is not None:
-        payload["mandate"] = priced.to_dict()
-        payload["unconstrained_best"] = free.best.to_dict()
+    # on a terminal a product's solve shows its progress in place, erased before the result
+    live = loaded.kind == "problem" and not as_json
+    with live_progress(console, enabled=live, currency=loaded.currency):
+        result = api.solve(
+            loaded,
+            top=top,
+            method=method,
+            time_limit=time_limit,
+            table_time=table_time,
+            mixes=mixes,
+            by_architecture=by_architecture,
+            require_die_yield=require_die_yield,
+            require_sigma=require_sigma,
+            require_defect_level=require_defect_level,
+            deadline=deadline,
+        )
     folder = None
     if write:
-        files = {
-            "solution.json": text_writer(json_text(payload) + "\n"),
-            "ranked.csv": text_writer(_ranked_csv(solution)),
-            "solver.log": text_writer("\n".join(solution.log) + "\n"),
-            "problem.toml": copy_writer(problem_path),
-            # the ranked designs and each architecture's best as [[design]] tables that
-            # `evaluate` re-prices exactly
-            "designs.toml": text_writer(_designs_toml(solution, problem)),
-        }
-        if solution.architectures:
-            files["architectures.csv"] = text_writer(_architectures_csv(solution))
-            files.update(_decision_figure(solution, problem))
-        if flips is not None:
-            files["flips.csv"] = text_writer(_flips_csv(flips))
+        # the copy is of the file named on the command line, read at write time as before
+        files = {**result.files(), "problem.toml": copy_writer(problem_path)}
         folder = write_run_folder(results_dir, "solve", problem_path.stem, files)
     if as_json:
+        payload = result.to_dict()
         if folder is not None:
             payload["run_folder"] = str(folder)
         typer.echo(json_text(payload))
         return
-    console.print(report.solution_view(solution))
-    if solution.architectures:
-        console.print(
-            report.decision_view(solution.architectures, solution.best.currency, table_time)
-        )
-    for challenger, rows in flips or []:
-        console.print(report.flips_view(challenger, rows, solution.best.currency))
-    if priced is not None:
-        console.print(report.mandate_view(priced))
+    if loaded.kind == "family":
+        _show_family_solution(console, result)
+    elif loaded.kind == "life":
+        from optimizer import life_report
+
+        console.print(life_report.solution_view(result.solution, loaded.currency))
+    else:
+        _show_solution(console, result, table_time)
     if folder is not None:
         console.print(Text(f"wrote {folder}"))
     console.print(report.CAUTION, style="dim", markup=False)
 
 
-REQUIRE_OPTIONS = {
-    "--require-die-yield": ("min_die_yield", "a die yield above 0 and at most 1, e.g. 0.9"),
-    "--require-sigma": ("min_sigma_margin", "a design margin above 0 sigma, e.g. 3"),
-    "--require-defect-level": (
-        "max_defect_level",
-        "a defect level from 0 to below 1, e.g. 1e-4 (100 ppm)",
-    ),
-}
-
-
-def _requirement_options(die_yield, sigma, defect_level) -> dict[str, float]:
-    """The --require-... options given, as [requirements] keys; each checked on its own."""
-    from pydantic import ValidationError
-
-    from optimizer.problem import Requirements
-
-    chosen = {}
-    given = zip(REQUIRE_OPTIONS.items(), (die_yield, sigma, defect_level), strict=True)
-    for (option, (key, wanted)), value in given:
-        if value is None:
-            continue
-        try:
-            Requirements(**{key: value})
-        except ValidationError:
-            raise ProblemError(option, f"{value:g}", f"out of range; give {wanted}") from None
-        chosen[key] = value
-    return chosen
-
-
-def _requirements(problem, options: dict[str, float]):
-    """The file's [requirements] with any --require-... options on top (None if none)."""
-    from optimizer.problem import Requirements
-
-    merged = Requirements(**{**problem.requirements.model_dump(), **options})
-    return merged if merged.any() else None
-
-
-def _challengers(solution) -> list:
-    """The best design of the next architecture and, when its die count is the optimum's,
-    the best design with another die count: the choices an architect weighs."""
-    rows = [row for row in solution.architectures if row.design is not None and not row.optimum]
-    if not rows:
-        return []
-    picked = [rows[0].design]
-    if rows[0].n_dies == solution.best.n_dies:
-        other = next((r for r in rows if r.n_dies != solution.best.n_dies), None)
-        if other is not None:
-            picked.append(other.design)
-    return picked
-
-
-def _flips(problem_path: Path, problem, solution) -> list | None:
-    """Break-even of each main input between the optimum and each challenger."""
-    challengers = _challengers(solution)
-    if not challengers:
-        return None
-    from optimizer.explore.breakeven import break_even, main_inputs
-    from optimizer.explore.fixed import FixedDesign
-    from optimizer.explore.paths import load_study
-
-    study = load_study(problem_path)
-    optimum = FixedDesign.from_result(solution.best, problem)
-    out = []
-    for design in challengers:
-        challenger = FixedDesign.from_result(design, problem)
-        paths = main_inputs(problem, [optimum, challenger])
-        out.append((design, break_even(study.data, str(problem_path), optimum, challenger, paths)))
-    return out
-
-
-def _flips_csv(flips) -> str:
-    import pandas as pd
-
-    rows = [
-        {"challenger": report.short_design(design), **row.to_dict()}
-        for design, found in flips
-        for row in found
-    ]
-    return pd.DataFrame(rows).to_csv(index=False)
-
-
-def _designs_toml(solution, problem) -> str:
-    from optimizer.designs import designs_toml
-
-    results = list(solution.designs)
-    names = [f"solved_rank{rank}" for rank in range(1, len(results) + 1)]
-    for row in solution.architectures:
-        if row.design is not None and not row.optimum:
-            results.append(row.design)
-            names.append(f"best_{row.packaging}_{row.n_dies}_dies")
-    return designs_toml(results, problem=problem, names=names)
-
-
-def _architectures_csv(solution) -> str:
-    import pandas as pd
-
-    rows = []
-    listed = []
-    for row in solution.architectures:
-        listed.append(row)
-        listed.extend(row.mixes)
-    for row in listed:
-        d = row.design
-        rows.append(
-            {
-                "architecture": row.label,
-                "held_to_mix": row.mix,
-                "packaging": row.packaging,
-                "n_dies": row.n_dies,
-                "process_mix": row.process_mix,
-                "optimum": row.optimum,
-                "proven": row.proven,
-                "profit": d.profit if d else None,
-                "profit_bound": row.profit_bound,
-                "gap": row.gap if d else None,
-                "behind_optimum": solution.best.profit - d.profit if d else None,
-                "cost_per_good_unit": d.cost_per_good_unit if d else None,
-                "die_yields": report.die_yields(d) if d else "",
-                "package_yield": d.package_yield if d else None,
-                "nre": d.nre if d else None,
-                "salvage_revenue": d.salvage_revenue if d else None,
-                "design": report.short_design(d) if d else "",
-                "reason": row.reason,
-                **{f"gap_{k}": v for k, v in row.gap_components.items()},
-            }
+def _show_solution(console: Console, result, table_time: float) -> None:
+    solution = result.solution
+    console.print(report.solution_view(solution))
+    if solution.architectures:
+        console.print(
+            report.decision_view(solution.architectures, solution.best.currency, table_time)
         )
-    return pd.DataFrame(rows).to_csv(index=False)
+    for challenger, rows in result.challengers or []:
+        console.print(report.flips_view(challenger, rows, solution.best.currency))
+    if result.mandate is not None:
+        console.print(report.mandate_view(result.mandate))
 
 
-def _decision_figure(solution, problem) -> dict:
-    from optimizer.cli_explore import _figure_writers
-    from optimizer.explore.plots import decision_figure
+def _show_family_solution(console: Console, result) -> None:
+    from optimizer import family_report
 
-    rows = [
-        {
-            "architecture": f"{row.label}: {row.process_mix}" if row.design else row.label,
-            "profit": row.profit if row.design is not None else None,
-            "bound": row.profit_bound,
-            "proven": row.proven,
-            "optimum": row.optimum,
-            "reason": row.reason,
-        }
-        for row in solution.architectures
-    ]
-    title = f"{problem.title}: best design of each architecture"
-    figure = decision_figure(rows, title, solution.best.currency)
-    return _figure_writers("architectures", figure, problem.title)
-
-
-def _ranked_csv(solution) -> str:
-    import pandas as pd
-
-    rows = []
-    for rank, d in enumerate(solution.designs, start=1):
-        rows.append(
-            {
-                "rank": rank,
-                "design": report.short_design(d),
-                "packaging": d.packaging,
-                "n_dies": d.n_dies,
-                "cost_per_good_unit": d.cost_per_good_unit,
-                "manufacturing_cost_per_good_unit": d.manufacturing_cost_per_good_unit,
-                "package_yield": d.package_yield,
-                "nre": d.nre,
-                "profit": d.profit,
-                "profit_margin": d.profit_margin,
-                **{f"cost_{k}": v for k, v in d.breakdown.items()},
-            }
+    solution = result.solution
+    console.print(family_report.family_view(solution, result.problem_file.title))
+    if result.tables:
+        console.print(
+            family_report.tables_view(result.tables, solution.library, solution.designs[0].currency)
         )
-    return pd.DataFrame(rows).to_csv(index=False)
 
 
 # ---------------------------------------------------------------- product families
-def _load(problem_path: Path):
-    """The file's :class:`Problem`, or its :class:`Family` when it holds [[product]]
-    tables; read once, validated as ``load_problem`` and ``load_family`` do."""
-    from optimizer.family import family_from_data, is_family
-    from optimizer.problem import check_feasible, parse_problem, read_problem_data
-
-    data, source = read_problem_data(problem_path)
-    from optimizer.life import has_life
-
-    if has_life(data) and not is_family(data):
-        from optimizer.life import life_plan
-
-        plan = life_plan(data, source)
-        check_feasible(plan.base, source)
-        return _LifeFile(plan)
-    if is_family(data):
-        if "uncertain" in data:
-            # a family's [[uncertain]] entries sit at the top level (exploration reads them)
-            from optimizer.explore.family_paths import family_study_from_data
-
-            return family_study_from_data(data, source).family
-        return family_from_data(data, source)
-    problem = parse_problem(data, source)
-    check_feasible(problem, source)
-    return problem
-
-
-class _LifeFile:
-    """A problem file with a [life] plan: its base problem and the plan."""
-
-    def __init__(self, plan):
-        self.plan = plan
-        self.problem = plan.base
-
-
 def _life_refused(problem_path: Path, command: str) -> ProblemError:
     return ProblemError(
         str(problem_path),
@@ -882,19 +630,6 @@ def _life_refused(problem_path: Path, command: str) -> ProblemError:
         "[[design]] entries over it; without [life] the file is priced for one set of "
         "numbers",
     )
-
-
-def _is_family(loaded) -> bool:
-    from optimizer.family import Family
-
-    return isinstance(loaded, Family)
-
-
-def _in_product(error: ProblemError, name: str) -> ProblemError:
-    """A single-product error raised on a family member, named under its product."""
-    own = error.field.split(".")[0].split("[")[0] in ("market", "requirements", "design")
-    where = f"product '{name}'.{error.field}" if own else f"product '{name}': {error.field}"
-    return ProblemError(error.source, where, error.message)
 
 
 def _check_family(problem_path: Path, family) -> None:
@@ -910,7 +645,7 @@ def _check_family(problem_path: Path, family) -> None:
                 else []
             )
         except ProblemError as error:
-            raise _in_product(error, member.name) from None
+            raise api.in_product(error, member.name) from None
         found.append((member.name, results))
     console = _console()
     console.print(family_report.family_summary(family, str(problem_path)))
@@ -926,282 +661,16 @@ def _check_family(problem_path: Path, family) -> None:
     console.print(Text(f"ok: {problem_path} is valid: a family of {len(family.members)} products."))
 
 
-def _family_designs(problem_path: Path, family, only: str | None) -> list[str]:
-    """Names of the family designs to price: each must be a [[product.design]] of every
-    product."""
-    names: list[str] = []
-    for member in family.members:
-        for design in member.problem.design:
-            if design.name not in names:
-                names.append(design.name)
-    if not names:
-        raise ProblemError(
-            str(problem_path),
-            "product.design",
-            "no product has a [[product.design]]; add one under each [[product]], all with "
-            "the same name, to price them as one family design",
-        )
-    if only is not None:
-        if only not in names:
-            raise ProblemError(
-                "--design",
-                "",
-                f"no family design named '{short(only)}' in {problem_path}; use one of {names}",
-            )
-        names = [only]
-    for name in names:
-        for member in family.members:
-            if name not in [d.name for d in member.problem.design]:
-                holder = next(
-                    m.name for m in family.members if name in [d.name for d in m.problem.design]
-                )
-                raise ProblemError(
-                    str(problem_path),
-                    f"product '{member.name}'.design",
-                    f"has no design named '{short(name)}' (product '{holder}' has one); a "
-                    "family design needs one per product, so add a [[product.design]] named "
-                    f"'{short(name)}' under product '{member.name}'",
-                )
-    return names
-
-
-def _evaluate_family(problem_path: Path, family, only: str | None, as_json: bool) -> None:
-    from optimizer import family_report
-    from optimizer.designs import evaluate_design
-    from optimizer.evaluator import Evaluator
-    from optimizer.solver.family import family_profit
-
-    wanted = _family_designs(problem_path, family, only)
-    names = family.names
-    problems = [m.problem for m in family.members]
-    evaluators = [Evaluator(p) for p in problems]
-    priced = []
-    for name in wanted:
-        results = []
-        for member, evaluator in zip(family.members, evaluators, strict=True):
-            try:
-                results.append(
-                    evaluate_design(evaluator, member.problem.design_named(name), str(problem_path))
-                )
-            except ProblemError as error:
-                raise _in_product(error, member.name) from None
-        conflict = family_report.target_conflict(names, results)
-        total = family_profit(problems, results) if conflict is None else None
-        priced.append((name, results, total, conflict))
-    # the family designs that keep every rule first, each group by family profit
-    priced.sort(
-        key=lambda item: (
-            any(r.violations for r in item[1]),
-            item[2] is None,
-            -(item[2][0] if item[2] is not None else 0.0),
-        )
-    )
-    if as_json:
-        payload = {
-            "family": family.title,
-            "products": names,
-            "designs": [
-                {
-                    "design": name,
-                    "profit": total[0] if total is not None else None,
-                    "shared_nre": total[1] if total is not None else None,
-                    "shared_targets": total[2] if total is not None else None,
-                    "conflict": conflict,
-                    "products": [
-                        {"product": n, **r.to_dict()} for n, r in zip(names, results, strict=True)
-                    ],
-                }
-                for name, results, total, conflict in priced
-            ],
-        }
-        typer.echo(json_text(payload))
-        return
-    console = _console()
-    for name, results, total, conflict in priced:
-        console.print(
-            family_report.family_design_view(name, names, results, total or (0, 0, 0), conflict)
-        )
-        console.print()
-    if len(priced) > 1:
-        rows = [
-            (name, total[0] if total is not None else None, any(r.violations for r in results))
-            for name, results, total, _ in priced
-        ]
-        console.print(family_report.designs_overview(rows, problems[0].market.currency))
-    console.print(report.CAUTION, style="dim", markup=False)
-
-
-def _evaluate_life(problem_path: Path, plan, only: str | None, as_json: bool) -> None:
-    from optimizer import life_report
-    from optimizer.life_value import design_life_value
-
-    problem = plan.base
-    if not problem.design:
-        raise ProblemError(
-            str(problem_path), "design", "the file has no [[design]] to evaluate; add one"
-        )
-    names = [d.name for d in problem.design]
-    if only is not None and only not in names:
-        raise ProblemError(
-            "--design", "", f"no design named '{short(only)}' in {problem_path}; use one of {names}"
-        )
-    chosen = [only] if only is not None else names
-    values = sorted(
-        (design_life_value(plan, name, str(problem_path)) for name in chosen),
-        key=lambda v: -v.npv,
-    )
-    if as_json:
-        payload = {"problem": problem.title, "life": [life_report.life_dict(v) for v in values]}
-        typer.echo(json_text(payload))
-        return
-    console = _console()
-    for value in values:
-        console.print(life_report.life_view(value, problem.market.currency))
-        console.print()
-    console.print(report.CAUTION, style="dim", markup=False)
-
-
-def _solve_life(
-    problem_path: Path, plan, deadline, as_json: bool, results_dir, table_time: float = 0.0
-) -> None:
-    from optimizer import life_report
-    from optimizer.solver.life import solve_life
-
-    limit = None if deadline is None else max(0.0, deadline - time.perf_counter())
-    solution = solve_life(
-        plan,
-        time_limit=limit,
-        source=str(problem_path),
-        table=table_time > 0,
-        table_time=table_time,
-    )
-    currency = plan.base.market.currency
-    values = life_report.curves(solution, plan.labels[0])
-    payload = {
-        "problem": plan.base.title,
-        "npv": solution.best.npv,
-        "proven": solution.proven,
-        "npv_bound": solution.npv_bound,
-        "gap": solution.gap,
-        "seconds": solution.seconds,
-        "targets": plan.targets,
-        "design": solution.best.periods[0].result.to_dict(),
-        "life": {name: life_report.life_dict(v) for name, v in values.items()},
-        "architectures": [life_report.row_dict(r) for r in solution.rows],
-    }
-    folder = None
-    if results_dir is not None:
-        figure = life_report.cumulative_figure(values, currency, plan.base.title)
-        files = {
-            "life.json": text_writer(json_text(payload) + "\n"),
-            "periods.csv": text_writer(life_report.periods_csv(values)),
-            "cumulative_value.png": figure_writer(figure, dpi=130),
-            "cumulative_value.svg": figure_writer(figure),
-            "problem.toml": copy_writer(problem_path),
-        }
-        folder = write_run_folder(results_dir, "solve", problem_path.stem, files)
-    if as_json:
-        if folder is not None:
-            payload["run_folder"] = str(folder)
-        typer.echo(json_text(payload))
-        return
-    console = _console()
-    console.print(life_report.solution_view(solution, currency))
-    if folder is not None:
-        console.print(Text(f"wrote {folder}"))
-    console.print(report.CAUTION, style="dim", markup=False)
-
-
-# solve options a family solve does not take, and what to do instead
-FAMILY_REFUSES = {
-    "top": ("--top", "a family solve gives one design per product"),
-    "mixes": ("--mixes", "process mixes are split for one product's architecture table"),
-    "by_architecture": ("--by-architecture", "the ranked list is made for one product"),
-    "require_die_yield": ("--require-die-yield", "mandates are stated per product"),
-    "require_sigma": ("--require-sigma", "mandates are stated per product"),
-    "require_defect_level": ("--require-defect-level", "mandates are stated per product"),
-}
-
-
 def _given(ctx: typer.Context, name: str) -> bool:
     source = ctx.get_parameter_source(name)
     return source is not None and source.name in ("COMMANDLINE", "ENVIRONMENT")
 
 
 def _family_options(ctx: typer.Context, problem_path: Path) -> None:
-    for name, (option, why) in FAMILY_REFUSES.items():
-        if not _given(ctx, name):
-            continue
-        if option.startswith("--require"):
-            key = REQUIRE_OPTIONS[option][0]
-            fix = (
-                f"drop it and state {key} in [product.requirements] of each product that must "
-                "meet it"
-            )
-        else:
-            fix = "drop it, or write one product as its own problem file and solve that"
-        raise ProblemError(
-            option,
-            "",
-            f"does not apply to the product family in {problem_path} ({why}); {fix}",
-        )
-
-
-def _solve_family(
-    problem_path: Path,
-    family,
-    deadline: float | None,
-    method: str | None,
-    as_json: bool,
-    results_dir: Path | None,
-    table_time: float = 0.0,
-) -> None:
-    from optimizer import family_report
-    from optimizer.solver.family import solve_family
-    from optimizer.solver.family_table import family_tables
-
-    limit = None if deadline is None else max(0.0, deadline - time.perf_counter())
-    options = {} if method is None else {"method": method}
-    solution = solve_family(family, time_limit=limit, source=str(problem_path), **options)
-    tables = {}
-    if table_time > 0:
-        left = table_time
-        if deadline is not None:
-            left = min(left, max(0.0, deadline - time.perf_counter()))
-        problems = [m.problem for m in family.members]
-        tables = family_tables(solution, problems, str(problem_path), time_limit=left)
-    payload = family_report.family_dict(solution, family.title)
-    payload["architectures"] = family_report.tables_dict(tables)
-    folder = None
-    if results_dir is not None:
-        files = {
-            "family.json": text_writer(json_text(payload) + "\n"),
-            "library.csv": text_writer(family_report.library_csv(solution)),
-            "products.csv": text_writer(family_report.products_csv(solution)),
-            "solver.log": text_writer("\n".join(solution.log) + "\n"),
-            "problem.toml": copy_writer(problem_path),
-            # each product's design as [[product.design]], for `evaluate` to re-price
-            "designs.toml": text_writer(
-                family_report.designs_toml(family, solution.designs, "family_optimum")
-            ),
-        }
-        if tables:
-            files["architectures.csv"] = text_writer(family_report.tables_csv(tables))
-        folder = write_run_folder(results_dir, "solve", problem_path.stem, files)
-    if as_json:
-        if folder is not None:
-            payload["run_folder"] = str(folder)
-        typer.echo(json_text(payload))
-        return
-    console = _console()
-    console.print(family_report.family_view(solution, family.title))
-    if tables:
-        console.print(
-            family_report.tables_view(tables, solution.library, solution.designs[0].currency)
-        )
-    if folder is not None:
-        console.print(Text(f"wrote {folder}"))
-    console.print(report.CAUTION, style="dim", markup=False)
+    """Single-product options given on the command line for a family file are refused."""
+    for name in api.FAMILY_REFUSES:
+        if _given(ctx, name):
+            raise api.family_refusal(name, str(problem_path))
 
 
 @app.command()
@@ -1244,19 +713,20 @@ def profit_curve_command(
     from optimizer.solver import solve as run_solver
     from optimizer.targets import cost_rises_without_bound, profit_curve, profit_curve_figure
 
-    _requirement_options(require_die_yield, None, None)
+    api.requirement_options(require_die_yield, None, None)
     preflight(results_dir)
-    problem = _load(problem_path)
-    if isinstance(problem, _LifeFile):
+    loaded = api.load(problem_path)
+    if loaded.kind == "life":
         raise _life_refused(problem_path, "profit-curve")
-    if _is_family(problem):
+    if loaded.kind == "family":
         raise ProblemError(
             str(problem_path),
             "product",
             "profit-curve follows one product's winner, and this file is a family of "
-            f"{len(problem.members)} products; run 'dieplan solve' on it, or write one product "
-            "as its own problem file",
+            f"{len(loaded.parsed.members)} products; run 'dieplan solve' on it, or write one "
+            "product as its own problem file",
         )
+    problem = loaded.problem
     solution = run_solver(problem, top=1, source=str(problem_path))
     frame = profit_curve(problem, solution.best, points=points)
     mandated = (
