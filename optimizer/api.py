@@ -776,6 +776,33 @@ def requirement_options(die_yield=None, sigma=None, defect_level=None) -> dict[s
     return chosen
 
 
+# solve options a life solve does not take: (option, why, default)
+LIFE_REFUSES = {
+    "top": ("--top", "a life solve gives the optimum and each architecture's best", 3),
+    "method": ("--method", "the life is searched by its own bound and listing", None),
+    "mixes": ("--mixes", "the life's decision table is by packaging and die count", 1),
+    "by_architecture": ("--by-architecture", "the decision table lists every architecture", False),
+    "require_die_yield": ("--require-die-yield", "mandates of a life are read from the file", None),
+    "require_sigma": ("--require-sigma", "mandates of a life are read from the file", None),
+    "require_defect_level": (
+        "--require-defect-level",
+        "mandates of a life are read from the file",
+        None,
+    ),
+}
+
+
+def life_refusal(name: str, source: str) -> ProblemError:
+    """The error for a solve option a life plan's solve does not take."""
+    option, why, _ = LIFE_REFUSES[name]
+    if option.startswith("--require"):
+        key = REQUIRE_OPTIONS[option][0]
+        fix = f"drop it and state {key} in [requirements]: every period must then meet it"
+    else:
+        fix = "drop it"
+    return ProblemError(option, "", f"does not apply to the life plan in {source} ({why}); {fix}")
+
+
 def family_refusal(name: str, source: str) -> ProblemError:
     """The error for a single-product solve option given on a family file."""
     option, why, _ = FAMILY_REFUSES[name]
@@ -1046,6 +1073,18 @@ def solve(
     given = requirement_options(require_die_yield, require_sigma, require_defect_level)
     pf = _as_file(problem_file)
     if pf.kind == "life":
+        values = dict(
+            top=top,
+            method=method,
+            mixes=mixes,
+            by_architecture=by_architecture,
+            require_die_yield=require_die_yield,
+            require_sigma=require_sigma,
+            require_defect_level=require_defect_level,
+        )
+        for name, value in values.items():
+            if value != LIFE_REFUSES[name][2]:
+                raise life_refusal(name, pf.source)
         return _solve_life(pf, deadline, time_limit, table_time)
     if pf.kind == "family":
         values = dict(

@@ -553,12 +553,17 @@ def solve(
         # a family's search keeps its own method unless one is asked for
         if not _given(ctx, "method"):
             method = None
+    if loaded.kind == "life":
+        for name in api.LIFE_REFUSES:
+            if _given(ctx, name):
+                raise api.life_refusal(name, str(problem_path))
+        method = None
     from optimizer.live import live_progress
 
     console = _console()
-    # on a terminal a product's solve shows its progress in place, erased before the result
-    live = loaded.kind == "problem" and not as_json
-    with live_progress(console, enabled=live, currency=loaded.currency):
+    # on a terminal the solve shows its progress in place, erased before the result
+    objective = {"family": "family profit", "life": "net present value"}.get(loaded.kind, "profit")
+    with live_progress(console, enabled=not as_json, currency=loaded.currency, objective=objective):
         result = api.solve(
             loaded,
             top=top,

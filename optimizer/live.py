@@ -34,8 +34,11 @@ def gap_text(gap: float | None) -> str:
     return f"{gap:.3g} ({gap * 100:.3g} %)" if gap > 0 else "0 (best found meets the bound)"
 
 
-def progress_view(event: ProgressEvent, currency: str, seconds: float, spinner=None):
-    """What the terminal shows for ``event`` after ``seconds`` of solving."""
+def progress_view(
+    event: ProgressEvent, currency: str, seconds: float, spinner=None, objective: str = "profit"
+):
+    """What the terminal shows for ``event`` after ``seconds`` of solving; ``objective``
+    names what best and bound are ("profit", "family profit", "net present value")."""
     head = Table.grid(padding=(0, 1))
     head.add_column(no_wrap=True)
     head.add_column(no_wrap=True, overflow="ellipsis")
@@ -45,15 +48,15 @@ def progress_view(event: ProgressEvent, currency: str, seconds: float, spinner=N
     facts.add_column(style="dim", no_wrap=True)
     facts.add_column(no_wrap=True)
     facts.add_row("candidate dies priced", f"{event.candidates_priced:,}")
-    facts.add_row("best profit found", money(event.best_profit, currency))
-    facts.add_row("proven profit bound", money(event.profit_bound, currency))
+    facts.add_row(f"best {objective} found", money(event.best_profit, currency))
+    facts.add_row(f"proven {objective} bound", money(event.profit_bound, currency))
     facts.add_row("gap", gap_text(event.gap))
     return Group(head, facts)
 
 
 @contextmanager
 def live_progress(
-    console: Console, enabled: bool = True, currency: str = ""
+    console: Console, enabled: bool = True, currency: str = "", objective: str = "profit"
 ) -> Iterator[Progress | None]:
     """Solves inside the block report to a live view on ``console``, erased at the end.
 
@@ -69,7 +72,7 @@ def live_progress(
 
     def view() -> RenderableType:
         seconds = time.perf_counter() - began
-        return progress_view(progress.latest(), currency, seconds, spinner)
+        return progress_view(progress.latest(), currency, seconds, spinner, objective)
 
     live = Live(
         console=console,

@@ -261,3 +261,29 @@ def test_a_listened_life_solve_reports_npv_not_period_profits():
     priced = [e.candidates_priced for e in events]
     assert priced == sorted(priced) and priced[-1] > 0
     assert any("bounding period" in e.stage for e in events)
+
+
+@pytest.mark.parametrize(
+    "option",
+    [["--top", "2"], ["--method", "milp"], ["--mixes", "2"], ["--require-sigma", "3"]],
+)
+def test_solve_options_a_life_does_not_take_are_refused_in_one_line(tmp_path, option):
+    path = Path(__file__).resolve().parent.parent / "problems" / "edge_accelerator_life.toml"
+    out = runner.invoke(app, ["solve", str(path), *option, "--results", str(tmp_path / "r")])
+    assert out.exit_code == 2
+    lines = out.stderr.strip().splitlines()
+    assert len(lines) == 1 and option[0] in lines[0] and "life plan" in lines[0]
+    assert not (tmp_path / "r").exists()
+
+
+def test_the_live_view_of_a_life_names_net_present_value():
+    from rich.console import Console
+
+    from optimizer.live import progress_view
+    from optimizer.solver.progress import ProgressEvent
+
+    console = Console(record=True, width=100)
+    event = ProgressEvent("the life: bounding period Y2 of 4", 10, 1.5e8, 1.6e8, 0.066, 1.0)
+    console.print(progress_view(event, "USD", 1.0, objective="net present value"))
+    text = console.export_text()
+    assert "best net present value found" in text and "150,000,000 USD" in text
