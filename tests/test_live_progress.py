@@ -219,7 +219,7 @@ def test_no_view_off_a_terminal_or_when_disabled(console, enabled, capsys):
 
 
 @contextmanager
-def no_view(console, enabled=True, currency=""):
+def no_view(console, enabled=True, currency="", objective="profit"):
     """The command without the feature."""
     yield None
 
