@@ -12,7 +12,7 @@ The Python API (:mod:`optimizer.api`) is reachable from here, loaded on first us
 
 __version__ = "0.1.0"
 
-# names of optimizer.api offered here; the module loads when one is first used
+# names of optimizer.api offered here; the package loads when one is first used
 _API = (
     "load",
     "evaluate",
