@@ -12,13 +12,13 @@ is priced, with every broken rule listed by :func:`design_violations`.
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 
 from optimizer.evaluator import COST_COMPONENTS, DieBatch, Evaluator
 from optimizer.problem import Design, Problem, ProblemError, Requirements
+from optimizer.toml_quote import toml_key, toml_string
 
 
 @dataclass(frozen=True)
@@ -448,24 +448,6 @@ TOML_HEADER = (
 )
 
 
-def _toml_string(text: str) -> str:
-    """A TOML basic string; names are printable (validated), but quote and escape anyway."""
-    out = []
-    for ch in text:
-        if ch in '"\\':
-            out.append("\\" + ch)
-        elif ord(ch) < 0x20 or ord(ch) == 0x7F:
-            out.append(f"\\u{ord(ch):04X}")
-        else:
-            out.append(ch)
-    return '"' + "".join(out) + '"'
-
-
-def _toml_key(text: str) -> str:
-    # bare keys read better; anything else is quoted
-    return text if re.fullmatch(r"[A-Za-z0-9_-]+", text) else _toml_string(text)
-
-
 def _toml_float(x: float) -> str:
     # repr is the shortest text that parses back to the same float: at most 17
     # significant digits, an exponent below 1e-4, so within the 20-digit quantity grammar
@@ -473,7 +455,7 @@ def _toml_float(x: float) -> str:
 
 
 def _inline(table: dict[str, int]) -> str:
-    items = ", ".join(f"{_toml_key(k)} = {int(v)}" for k, v in table.items() if v)
+    items = ", ".join(f"{toml_key(k)} = {int(v)}" for k, v in table.items() if v)
     return "{ " + items + " }" if items else "{}"
 
 
@@ -489,18 +471,18 @@ def _design_body(problem: Problem | None, result: DesignResult, name: str) -> st
         targets.setdefault(die.process, f"{_toml_float(die.defect_density_per_cm2)} /cm^2")
     lines = [
         "[[design]]",
-        f"name = {_toml_string(name)}",
-        f"packaging = {_toml_string(result.packaging)}",
+        f"name = {toml_string(name)}",
+        f"packaging = {toml_string(result.packaging)}",
     ]
     if targets:
-        pairs = ", ".join(f"{_toml_key(p)} = {_toml_string(d)}" for p, d in targets.items())
+        pairs = ", ".join(f"{toml_key(p)} = {toml_string(d)}" for p, d in targets.items())
         lines.append(f"defect_targets = {{ {pairs} }}")
     for die in result.dies:
         lines += [
             "",
             "[[design.die]]",
-            f"name = {_toml_string(die.name)}",
-            f"process = {_toml_string(die.process)}",
+            f"name = {toml_string(die.name)}",
+            f"process = {toml_string(die.process)}",
             f"copies = {int(die.copies)}",
             f"blocks = {_inline(die.blocks)}",
             f"spares = {_inline(die.spares)}",

@@ -5,26 +5,9 @@ from __future__ import annotations
 
 import datetime as _dt
 import math
-import re
 
 from optimizer.errors import ProblemError
-
-
-def _toml_string(text: str) -> str:
-    escaped = []
-    for ch in text:
-        if ch in '"\\':
-            escaped.append("\\" + ch)
-        elif ord(ch) < 0x20 or ord(ch) == 0x7F:
-            escaped.append(f"\\u{ord(ch):04X}")
-        else:
-            escaped.append(ch)
-    return '"' + "".join(escaped) + '"'
-
-
-def _toml_key(key: object) -> str:
-    text = str(key)
-    return text if re.fullmatch(r"[A-Za-z0-9_-]+", text) else _toml_string(text)
+from optimizer.toml_quote import toml_key, toml_string
 
 
 def _toml_value(value: object) -> str:
@@ -39,11 +22,11 @@ def _toml_value(value: object) -> str:
             return "inf" if value > 0 else "-inf"
         return repr(float(value))
     if isinstance(value, str):
-        return _toml_string(value)
+        return toml_string(value)
     if isinstance(value, _dt.date | _dt.time):
         return value.isoformat()
     if isinstance(value, dict):
-        items = ", ".join(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in value.items())
+        items = ", ".join(f"{toml_key(k)} = {_toml_value(v)}" for k, v in value.items())
         return "{ " + items + " }" if items else "{}"
     if isinstance(value, list):
         return "[" + ", ".join(_toml_value(v) for v in value) + "]"
@@ -64,13 +47,13 @@ def toml_document(data: dict, source: str = "<problem>") -> str:
     try:
         for key, value in data.items():
             if not isinstance(value, dict) and not _is_table_list(value):
-                lines.append(f"{_toml_key(key)} = {_toml_value(value)}")
+                lines.append(f"{toml_key(key)} = {_toml_value(value)}")
         for key, value in data.items():
             tables = [value] if isinstance(value, dict) else value if _is_table_list(value) else []
-            head = f"[{_toml_key(key)}]" if isinstance(value, dict) else f"[[{_toml_key(key)}]]"
+            head = f"[{toml_key(key)}]" if isinstance(value, dict) else f"[[{toml_key(key)}]]"
             for table in tables:
                 lines += ["", head]
-                lines += [f"{_toml_key(k)} = {_toml_value(v)}" for k, v in table.items()]
+                lines += [f"{toml_key(k)} = {_toml_value(v)}" for k, v in table.items()]
         text = "\n".join(lines) + "\n"
         same = tomllib.loads(text) == data
     except (TypeError, ValueError):
