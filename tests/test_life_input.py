@@ -70,6 +70,8 @@ CASES = [
     ("one_time_zero", life("one_time_period = 0"), "life.one_time_period", "from 1 to 3"),
     ("one_time_fraction", life("one_time_period = 1.5"), "life.one_time_period", "whole number"),
     ("read_point", life('read_curves_at = "late"'), "life.read_curves_at", "'middle'"),
+    ("targets_unknown", life('targets = "sometimes"'), "life.targets", "'per_period'"),
+    ("targets_as_number", life("targets = 5"), "life.targets", "'once'"),
     (
         "unknown_process",
         life("[life.process.slow]\nwafer_cost = [1.0, 1.0, 1.0]"),
