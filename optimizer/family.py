@@ -95,6 +95,13 @@ def parse_family(data: dict, source: str = "<problem>") -> Family:
                 f"a family file states [{key}] per product; move it into each [[product]] "
                 f"(as [product.{key}])",
             )
+    if "life" in data:
+        raise ProblemError(
+            source,
+            "life",
+            "a family file does not yet take a [life] plan; remove it to solve the family "
+            "for one set of numbers, or give each product's life in a problem file of its own",
+        )
     # [[uncertain]] is the family's own (its paths name products); exploration reads it
     shared = {k: v for k, v in data.items() if k not in ("product", "uncertain")}
     blocks = shared.get("block")

@@ -49,6 +49,15 @@ CASES = [
     ("no_products", "product = []\n" + SHARED, "product", "found 0"),
     ("product_not_a_list", SHARED + '[product]\nname = "x"\n', "product", "must be a list"),
     (
+        "life_plan_in_a_family",
+        SHARED
+        + SMALL
+        + LARGE
+        + '\n[life]\nperiod = "year"\nvolumes = [1, 2]\ndiscount_rate = 0.1\n',
+        "life",
+        "does not yet take a [life] plan",
+    ),
+    (
         "duplicate_product_names",
         _in_large(LARGE_NAME, 'name = "small"'),
         "product 'small'.name",
