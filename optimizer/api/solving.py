@@ -47,33 +47,29 @@ def solve(
     check_method(method)
     given = requirement_options(require_die_yield, require_sigma, require_defect_level)
     pf = _as_file(problem_file)
+    given_options = dict(
+        top=top,
+        method=method,
+        mixes=mixes,
+        by_architecture=by_architecture,
+        require_die_yield=require_die_yield,
+        require_sigma=require_sigma,
+        require_defect_level=require_defect_level,
+    )
     if pf.kind == "life":
-        values = dict(
-            top=top,
-            method=method,
-            mixes=mixes,
-            by_architecture=by_architecture,
-            require_die_yield=require_die_yield,
-            require_sigma=require_sigma,
-            require_defect_level=require_defect_level,
-        )
-        for name, value in values.items():
-            if value != LIFE_REFUSES[name][2]:
-                raise life_refusal(name, pf.source)
+        _refuse(given_options, LIFE_REFUSES, life_refusal, pf.source)
         return _solve_life(pf, deadline, time_limit, table_time)
     if pf.kind == "family":
-        values = dict(
-            top=top,
-            mixes=mixes,
-            by_architecture=by_architecture,
-            require_die_yield=require_die_yield,
-            require_sigma=require_sigma,
-            require_defect_level=require_defect_level,
-        )
-        for name, value in values.items():
-            if value != FAMILY_REFUSES[name][2]:
-                raise family_refusal(name, pf.source)
+        _refuse(given_options, FAMILY_REFUSES, family_refusal, pf.source)
         return _solve_family(pf, deadline, method, time_limit, table_time)
     return _solve_problem(
         pf, top, method or "auto", deadline, time_limit, table_time, mixes, by_architecture, given
     )
+
+
+def _refuse(given: dict, refused: dict, refusal, source: str) -> None:
+    """Raise the one-line error for the first option in ``refused`` (name -> (option,
+    why, default)) given a value other than its default."""
+    for name, (_, _, default) in refused.items():
+        if given[name] != default:
+            raise refusal(name, source)
