@@ -38,4 +38,6 @@ run python benchmarks/bench_solver.py --skip-exhaustive --limit 120
 run python benchmarks/bench_generation.py --sizes 16 18 20 22 24 --limit 240
 run python benchmarks/bench_early.py
 run python benchmarks/bench_sweep.py --every-point-scenarios 0 --density-scenarios 0
+run python benchmarks/bench_family.py --repeat 3
+run python benchmarks/bench_life.py --repeat 5
 mv "$tmp" "$out"
