@@ -24,8 +24,6 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from pydantic import ValidationError
-
 from optimizer.explore.paths import (
     FieldPath,
     PathError,
@@ -33,6 +31,7 @@ from optimizer.explore.paths import (
     apply_values,
     parse_path,
     parse_value,
+    read_uncertain_entries,
     read_value,
 )
 from optimizer.family import Family, family_from_data
@@ -40,7 +39,6 @@ from optimizer.problem import (
     Problem,
     ProblemError,
     UncertainInput,
-    _first_error,
     parse_problem,
     read_problem_data,
 )
@@ -286,26 +284,12 @@ def family_uncertain(entries: object, source: str) -> tuple[list[UncertainInput]
     Each entry is checked by the single-product schema against the number its path
     names (units, distribution parameters); the entry keeps its family path.
     """
-    if entries is None:
-        return [], []
-    if not isinstance(entries, list) or not all(isinstance(e, dict) for e in entries):
-        raise ProblemError(source, "uncertain", "must be a list of [[uncertain]] tables")
-    inputs, paths = [], []
-    for i, entry in enumerate(entries):
-        where = f"uncertain[{i}]"
-        try:
-            path = parse_family_path(entry.get("path"))
-        except PathError as exc:
-            raise ProblemError(source, f"{where}.path", str(exc)) from None
+
+    def check(entry: dict, path: FamilyPath) -> UncertainInput:
         stand_in = path.inner.text if path.inner is not None else _WHOLE_STAND_IN
-        try:
-            checked = UncertainInput.model_validate({**entry, "path": stand_in})
-        except ValidationError as exc:
-            field, message = _first_error(exc, entry)
-            raise ProblemError(source, f"{where}.{field}" if field else where, message) from None
-        inputs.append(checked.model_copy(update={"path": path.text}))
-        paths.append(path)
-    return inputs, paths
+        return UncertainInput.model_validate({**entry, "path": stand_in})
+
+    return read_uncertain_entries(entries, source, parse_family_path, check)
 
 
 def family_study_from_data(data: dict, source: str, feasible: bool = True) -> FamilyStudy:

@@ -34,8 +34,6 @@ import copy
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from pydantic import ValidationError
-
 from optimizer.explore.paths import (
     FieldPath,
     PathError,
@@ -43,6 +41,7 @@ from optimizer.explore.paths import (
     apply_values,
     encode_number,
     parse_path,
+    read_uncertain_entries,
     read_value,
 )
 from optimizer.life import FORM_KEYS, SPECS, TIME, LifePlan, life_plan
@@ -51,7 +50,6 @@ from optimizer.problem import (
     Problem,
     ProblemError,
     UncertainInput,
-    _first_error,
 )
 from optimizer.units import DEFECT_DENSITY, QuantityKind, UnitError, to_base
 
@@ -387,34 +385,16 @@ def _entry_in_base_units(entry: dict, path: LifePath) -> dict:
 
 def life_uncertain(entries: object, source: str) -> tuple[list[UncertainInput], list[AnyPath]]:
     """Validate the ``[[uncertain]]`` entries of a life file (names checked later)."""
-    if entries is None:
-        return [], []
-    if not isinstance(entries, list) or not all(isinstance(e, dict) for e in entries):
-        raise ProblemError(source, "uncertain", "must be a list of [[uncertain]] tables")
-    inputs, paths = [], []
-    for i, entry in enumerate(entries):
-        where = f"uncertain[{i}]"
-        try:
-            path = parse_life_file_path(entry.get("path"))
-        except PathError as exc:
-            raise ProblemError(source, f"{where}.path", str(exc)) from None
-        try:
-            if isinstance(path, LifePath):
-                stand_in = _WHOLE_STAND_IN if path.integer else _PLAIN_STAND_IN
-                checked = UncertainInput.model_validate(
-                    {**_entry_in_base_units(entry, path), "path": stand_in}
-                )
-            else:
-                checked = UncertainInput.model_validate(entry)
-        except ValueError as exc:
-            if isinstance(exc, ValidationError):
-                field, message = _first_error(exc, entry)
-            else:
-                field, message = "", str(exc)
-            raise ProblemError(source, f"{where}.{field}" if field else where, message) from None
-        inputs.append(checked.model_copy(update={"path": path.text}))
-        paths.append(path)
-    return inputs, paths
+
+    def check(entry: dict, path: AnyPath) -> UncertainInput:
+        if not isinstance(path, LifePath):
+            return UncertainInput.model_validate(entry)
+        stand_in = _WHOLE_STAND_IN if path.integer else _PLAIN_STAND_IN
+        return UncertainInput.model_validate(
+            {**_entry_in_base_units(entry, path), "path": stand_in}
+        )
+
+    return read_uncertain_entries(entries, source, parse_life_file_path, check)
 
 
 def life_study_from_data(data: dict, source: str = "<problem>") -> LifeStudy:

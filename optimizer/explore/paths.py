@@ -34,11 +34,12 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from pydantic import BaseModel
+from pydantic import BaseModel, ValidationError
 
 from optimizer.problem import (
     Problem,
     ProblemError,
+    _first_error,
     check_feasible,
     parse_problem,
     read_problem_data,
@@ -398,6 +399,38 @@ def parse_value(path: FieldPath, text: object) -> float:
     if not math.isfinite(value):
         raise PathError(f"{text!r} is not a finite number; use a finite value")
     return value
+
+
+def read_uncertain_entries(entries: object, source: str, parse, check) -> tuple[list, list]:
+    """Validate the top-level ``[[uncertain]]`` entries of a family or life file.
+
+    ``parse(text)`` reads an entry's path (raising PathError); ``check(entry, path)``
+    validates the entry against the number its path names (raising ValueError, a
+    pydantic ValidationError among them). Each input keeps its own path text. Names
+    are checked later, against the file.
+    """
+    if entries is None:
+        return [], []
+    if not isinstance(entries, list) or not all(isinstance(e, dict) for e in entries):
+        raise ProblemError(source, "uncertain", "must be a list of [[uncertain]] tables")
+    inputs, paths = [], []
+    for i, entry in enumerate(entries):
+        where = f"uncertain[{i}]"
+        try:
+            path = parse(entry.get("path"))
+        except PathError as exc:
+            raise ProblemError(source, f"{where}.path", str(exc)) from None
+        try:
+            checked = check(entry, path)
+        except ValueError as exc:
+            if isinstance(exc, ValidationError):
+                field, message = _first_error(exc, entry)
+            else:
+                field, message = "", str(exc)
+            raise ProblemError(source, f"{where}.{field}" if field else where, message) from None
+        inputs.append(checked.model_copy(update={"path": path.text}))
+        paths.append(path)
+    return inputs, paths
 
 
 def check_uncertain(problem: Problem, source: str) -> list[FieldPath]:
