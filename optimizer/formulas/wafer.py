@@ -199,6 +199,7 @@ _COUNT_CACHE: dict[tuple[float, float, float], int] = {}
 # whole calls of gross_dies_exact_many, oldest dropped first
 _CALL_CACHE: dict[tuple, np.ndarray] = {}
 _CALL_CACHE_SIZE = 64
+_CALL_CACHE_MAX_ITEMS = 20_000
 
 
 def _count_threads() -> int:
@@ -399,7 +400,11 @@ def gross_dies_exact_many(usable_radius_mm, site_width_mm, site_height_mm) -> np
         np.asarray(v, dtype=float) for v in (usable_radius_mm, site_width_mm, site_height_mm)
     )
     # the same arrays come again and again (every period of a life prices the same
-    # candidate dies): whole calls are remembered too, by their bytes
+    # candidate dies): whole calls are remembered too, by their bytes; large calls
+    # (the candidate tables of big problems) are not, since their keys alone would
+    # hold megabytes each
+    if max(r.size, w.size, h.size) > _CALL_CACHE_MAX_ITEMS:
+        return _exact_many(r, w, h, bisect=True)
     key = (r.shape, w.shape, h.shape, r.tobytes(), w.tobytes(), h.tobytes())
     found = _CALL_CACHE.get(key)
     if found is None:
